@@ -1,0 +1,66 @@
+"""Atomic file output: write to a temporary file beside the target, fsync, then rename.
+
+A crash or error at any moment leaves either the old file or the complete new one, never a
+half-written file, and no temporary file behind.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import tempfile
+from pathlib import Path
+from typing import IO, Iterator
+
+from .errors import InputError
+
+
+def check_output_path(path: str | os.PathLike[str], force: bool = False) -> Path:
+    """Refuse to clobber an existing file unless ``force``; refuse a missing parent folder."""
+    p = Path(path)
+    if p.is_dir():
+        raise InputError(str(p), "is a directory; give an output file name")
+    if p.exists() and not force:
+        raise InputError(str(p), "already exists; use --force to overwrite")
+    parent = p.parent if str(p.parent) else Path(".")
+    if not parent.is_dir():
+        raise InputError(str(p), f"folder {str(parent)!r} does not exist")
+    return p
+
+
+@contextlib.contextmanager
+def atomic_open(path: str | os.PathLike[str], mode: str = "w", **kwargs) -> Iterator[IO]:
+    """Open a temporary file next to ``path``; on clean exit fsync and rename it over ``path``.
+
+    On any exception the temporary file is removed and the exception propagates; ``path`` is
+    untouched.
+    """
+    target = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent or ".")
+    try:
+        with os.fdopen(fd, mode, **kwargs) as fh:
+            yield fh
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, target)
+        _fsync_dir(target.parent)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(tmp)
+        raise
+
+
+def atomic_write_bytes(path: str | os.PathLike[str], data: bytes) -> None:
+    """Write ``data`` to ``path`` atomically."""
+    with atomic_open(path, "wb") as fh:
+        fh.write(data)
+
+
+def _fsync_dir(folder: Path) -> None:
+    """Make the rename itself durable (best effort: not every filesystem allows it)."""
+    with contextlib.suppress(OSError):
+        dfd = os.open(str(folder or "."), os.O_RDONLY)
+        try:
+            os.fsync(dfd)
+        finally:
+            os.close(dfd)

@@ -1,0 +1,1 @@
+"""Text interface for trackframe (Textual). Calls the same pipeline as the CLI."""
