@@ -1,0 +1,232 @@
+"""Cleaning a raw Track: order, duplicates, segments at gaps, impossible jumps. Counted, never silent.
+
+Steps, in order (all vectorised):
+
+1. Sort by time (stable). Local disorder is sorted and counted; a backward jump longer than the
+   gap limit is not a late fix but a clock reset or two joined logs, and is refused.
+2. Drop exact duplicate fixes (same time and position), counted.
+3. Fixes at the same time but a different position: keep the first, count the rest.
+4. Split segments at gaps longer than ``gap_s`` (source segments such as GPX ``trkseg`` are kept).
+5. Mark physically impossible jumps (multipath) in ``Track.suspect`` with a robust, median-based
+   test on the implied acceleration and speed of each fix (see ``jump_suspects``).
+
+Distances here use a local equirectangular approximation around each fix pair (adjacent fixes are
+metres apart, where its relative error is below 1e-6); the run's real frame is ``survey.frame``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from .errors import InputError
+from .track import Track
+
+#: Mean Earth radius for the equirectangular step approximation, m (IUGG mean radius R1,
+#: common practice).
+EARTH_RADIUS_M = 6_371_008.8
+
+#: Default gap that starts a new segment, s.
+DEFAULT_GAP_S = 30.0
+
+#: Robust z-score above which an implied acceleration or speed is judged impossible for the log.
+#: With Gaussian noise a value beyond 8 robust sigmas happens about once in 1e15 draws.
+JUMP_Z = 8.0
+
+
+@dataclass(frozen=True)
+class CleanReport:
+    """What cleaning did, as counts (shown by ``trackframe info``)."""
+
+    fixes_read: int
+    fixes_kept: int
+    exact_duplicates: int
+    same_time_conflicts: int
+    out_of_order: int
+    untimed_dropped: int
+    gap_splits: int
+    segments: int
+    suspect_jumps: int
+    gap_limit_s: float
+    has_time: bool
+
+    def as_dict(self) -> dict:
+        return asdict(self)
+
+
+def clean_track(track: Track, gap_s: float = DEFAULT_GAP_S) -> tuple[Track, CleanReport]:
+    """Clean ``track`` (see module doc); returns the cleaned Track and the counts.
+
+    Parameters
+    ----------
+    track
+        Raw Track from a reader.
+    gap_s
+        A time gap longer than this, in seconds, starts a new segment.
+    """
+    if not gap_s > 0:
+        raise InputError(None, f"gap limit must be positive, not {gap_s}")
+    path = track.source.path
+    n_read = len(track)
+    has_time = track.has_time
+    out_of_order = 0
+    untimed = 0
+    if has_time:
+        t = track.time_s
+        if not np.isfinite(t).all():
+            # Mixed timed and untimed fixes: untimed ones cannot be placed in time.
+            untimed = int(np.count_nonzero(~np.isfinite(t)))
+            track = track.take(np.isfinite(t))
+            t = track.time_s
+        if np.any(np.diff(t) < 0):
+            running_max = np.maximum.accumulate(t)
+            # A fix is out of order when an earlier record has a later time.
+            out_of_order = int(np.count_nonzero(t < running_max))
+            lag = running_max[:-1] - t[1:]
+            worst = int(np.argmax(lag))
+            if lag[worst] > gap_s:
+                raise InputError(
+                    path,
+                    f"time goes backwards by {lag[worst]:.0f} s (clock reset or joined logs?); "
+                    "split the file or raise --gap",
+                    where=f"fix {worst + 2}",
+                )
+            track = track.take(np.argsort(t, kind="stable"))
+
+    track, exact, conflicts = _drop_duplicates(track, has_time)
+    track, splits = _split_segments(track, gap_s, has_time)
+    suspect = jump_suspects(track) if has_time and len(track) >= 3 else np.zeros(len(track), bool)
+    track = track.with_arrays(suspect=suspect)
+    report = CleanReport(
+        fixes_read=n_read,
+        fixes_kept=len(track),
+        exact_duplicates=exact,
+        same_time_conflicts=conflicts,
+        out_of_order=out_of_order,
+        untimed_dropped=untimed,
+        gap_splits=splits,
+        segments=int(np.unique(track.segment).size) if len(track) else 0,
+        suspect_jumps=int(suspect.sum()),
+        gap_limit_s=float(gap_s),
+        has_time=has_time,
+    )
+    return track, report
+
+
+def _drop_duplicates(track: Track, has_time: bool) -> tuple[Track, int, int]:
+    """Drop exact duplicates and same-time conflicts (time-sorted input)."""
+    if len(track) < 2:
+        return track, 0, 0
+    h = track.height_m
+    if has_time:
+        # Compare each fix with the first fix of its run of equal times.
+        t = track.time_s
+        run_start = np.r_[True, np.diff(t) != 0]
+        first = np.maximum.accumulate(np.where(run_start, np.arange(len(t)), 0))
+        in_run = ~run_start
+        exact_pos = (
+            (track.lat_deg == track.lat_deg[first])
+            & (track.lon_deg == track.lon_deg[first])
+            & ((h == h[first]) | (np.isnan(h) & np.isnan(h[first])))
+        )
+        exact = in_run & exact_pos
+        conflict = in_run & ~exact_pos
+    else:
+        # Without time, only consecutive identical records are duplicates.
+        same_pos = (np.diff(track.lat_deg) == 0) & (np.diff(track.lon_deg) == 0)
+        same_h = (np.diff(h) == 0) | (np.isnan(h[1:]) & np.isnan(h[:-1]))
+        exact = np.r_[False, same_pos & same_h]
+        conflict = np.zeros(len(track), bool)
+    keep = ~(exact | conflict)
+    return track.take(keep), int(exact.sum()), int(conflict.sum())
+
+
+def _split_segments(track: Track, gap_s: float, has_time: bool) -> tuple[Track, int]:
+    """Renumber segments 0..k-1: a new one at each source segment change and each long gap."""
+    if len(track) == 0:
+        return track, 0
+    src_change = np.r_[False, np.diff(track.segment) != 0]
+    gap = np.r_[False, np.diff(track.time_s) > gap_s] if has_time else np.zeros(len(track), bool)
+    new = src_change | gap
+    segment = np.cumsum(new).astype(np.int32)
+    return track.with_arrays(segment=segment), int(np.count_nonzero(gap & ~src_change))
+
+
+def local_steps_m(track: Track) -> np.ndarray:
+    """(n-1, 3) east/north/up steps between consecutive fixes, metres (equirectangular)."""
+    lat = np.radians(track.lat_deg)
+    lon = np.radians(track.lon_deg)
+    dlon = (np.diff(lon) + np.pi) % (2 * np.pi) - np.pi
+    mid_lat = 0.5 * (lat[1:] + lat[:-1])
+    de = EARTH_RADIUS_M * np.cos(mid_lat) * dlon
+    dn = EARTH_RADIUS_M * np.diff(lat)
+    du = np.nan_to_num(np.diff(track.height_m))
+    return np.column_stack([de, dn, du])
+
+
+def robust_sigma(x: np.ndarray) -> float:
+    """Median absolute deviation scaled to a Gaussian standard deviation (factor 1.4826,
+    Rousseeuw & Croux 1993, common practice)."""
+    x = x[np.isfinite(x)]
+    if x.size == 0:
+        return 0.0
+    return float(1.4826 * np.median(np.abs(x - np.median(x))))
+
+
+def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 3) -> np.ndarray:
+    """Boolean mask of fixes whose implied horizontal acceleration is impossible for this log.
+
+    For each interior fix the second divided difference of the horizontal position gives the
+    acceleration the receiver would have needed. A fix is suspect where that acceleration exceeds
+    the log's median by more than ``z`` robust sigmas (MAD) *and* it is the local peak (the two
+    neighbours of a spike see about half of it). Fixes at segment ends are tested against their
+    one neighbour by implied speed instead. Repeated ``passes`` times with suspects removed, so a
+    cluster of jumps is peeled one by one.
+    """
+    n = len(track)
+    suspect = np.zeros(n, bool)
+    for _ in range(passes):
+        idx = np.flatnonzero(~suspect)
+        if idx.size < 5:
+            break
+        sub = track.take(idx)
+        steps = local_steps_m(sub)[:, :2]
+        dt = np.diff(sub.time_s)
+        same_seg = np.diff(sub.segment) == 0
+        ok_dt = dt > 0
+        vel = np.where((same_seg & ok_dt)[:, None], steps / np.where(ok_dt, dt, 1.0)[:, None], np.nan)
+        # acceleration at interior fixes from the two adjacent step velocities
+        span = 0.5 * (dt[1:] + dt[:-1])
+        acc = np.linalg.norm(vel[1:] - vel[:-1], axis=1) / np.where(span > 0, span, np.nan)
+        speed = np.linalg.norm(vel, axis=1)
+        a_lim = np.nanmedian(acc) + z * robust_sigma(acc) if np.isfinite(acc).any() else np.inf
+        v_lim = np.nanmedian(speed) + z * robust_sigma(speed) if np.isfinite(speed).any() else np.inf
+        a_full = np.r_[np.nan, acc, np.nan]
+        left = np.r_[np.nan, a_full[:-1]]
+        right = np.r_[a_full[1:], np.nan]
+        peak = (a_full >= np.fmax(left, 0)) & (a_full >= np.fmax(right, 0))
+        bad = (a_full > a_lim) & peak
+        # Spikes where both steps are impossibly fast (catches jumps the acceleration test
+        # cannot see at segment ends).
+        v_in = np.r_[np.nan, speed]
+        v_out = np.r_[speed, np.nan]
+        bad |= (np.nan_to_num(v_in) > v_lim) & (np.nan_to_num(v_out) > v_lim)
+        ends = np.isnan(v_in) ^ np.isnan(v_out)
+        bad |= ends & (np.fmax(np.nan_to_num(v_in), np.nan_to_num(v_out)) > 2 * v_lim)
+        if not bad.any():
+            break
+        suspect[idx[bad]] = True
+    return suspect
+
+
+def estimate_noise_m(steps_m: np.ndarray) -> float:
+    """Robust per-axis white-noise sigma from second differences of positions, m.
+
+    For white noise of sigma s the second difference has sigma s*sqrt(6); smooth motion adds
+    little at GNSS rates. Used only to set jitter thresholds, never as a smoothing constant.
+    """
+    if len(steps_m) < 3:
+        return 0.0
+    d2 = np.diff(steps_m[:, :2], axis=0).ravel()
+    return robust_sigma(d2) / np.sqrt(6.0)

@@ -1,0 +1,1 @@
+"""CLI sub-commands: each module exposes ``add_parser(subparsers)`` and ``run(args) -> int``."""
