@@ -8,7 +8,7 @@ Steps, in order (all vectorised):
 3. Fixes at the same time but a different position: keep the first, count the rest.
 4. Split segments at gaps longer than ``gap_s`` (source segments such as GPX ``trkseg`` are kept).
 5. Mark physically impossible jumps (multipath) in ``Track.suspect`` with a robust, median-based
-   test on the implied acceleration and speed of each fix (see ``jump_suspects``).
+   test on how far each fix lies from the smooth motion of its neighbours (``jump_suspects``).
 
 Distances here use a local equirectangular approximation around each fix pair (adjacent fixes are
 metres apart, where its relative error is below 1e-6); the run's real frame is ``survey.frame``.
@@ -30,8 +30,9 @@ EARTH_RADIUS_M = 6_371_008.8
 #: Default gap that starts a new segment, s.
 DEFAULT_GAP_S = 30.0
 
-#: Robust z-score above which an implied acceleration or speed is judged impossible for the log.
-#: With Gaussian noise a value beyond 8 robust sigmas happens about once in 1e15 draws.
+#: Robust z-score above which a fix's departure from its neighbours is judged impossible for the
+#: log. For a 2D Gaussian residual, P(|r| > 8 sigma) = exp(-32), about 1e-14 (Rayleigh tail,
+#: closed form).
 JUMP_Z = 8.0
 
 
@@ -174,15 +175,18 @@ def robust_sigma(x: np.ndarray) -> float:
     return float(1.4826 * np.median(np.abs(x - np.median(x))))
 
 
-def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 3) -> np.ndarray:
-    """Boolean mask of fixes whose implied horizontal acceleration is impossible for this log.
+def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 4) -> np.ndarray:
+    """Boolean mask of fixes whose position is impossible given their neighbours in time.
 
-    For each interior fix the second divided difference of the horizontal position gives the
-    acceleration the receiver would have needed. A fix is suspect where that acceleration exceeds
-    the log's median by more than ``z`` robust sigmas (MAD) *and* it is the local peak (the two
-    neighbours of a spike see about half of it). Fixes at segment ends are tested against their
-    one neighbour by implied speed instead. Repeated ``passes`` times with suspects removed, so a
-    cluster of jumps is peeled one by one.
+    Each interior fix is predicted by the cubic through the two fixes before and the two after it
+    (Lagrange interpolation in time, so irregular sampling is handled exactly). Real motion, even a
+    hard bend, is smooth over five fixes and leaves a residual of the order of the receiver noise;
+    a multipath jump leaves its full size. A fix is suspect where its horizontal residual exceeds
+    ``z`` robust sigmas of the log's residuals (MAD of the per-axis components, which are about
+    Gaussian with zero mean) *and* is the local peak (a jump also shows, at 2/3 of its size, in
+    the prediction of its neighbours). Repeated ``passes`` times with suspects removed, so a
+    cluster of jumps is peeled one by one. The two fixes at each segment end have too few
+    neighbours and are not tested.
     """
     n = len(track)
     suspect = np.zeros(n, bool)
@@ -191,33 +195,44 @@ def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 3) -> np.ndarra
         if idx.size < 5:
             break
         sub = track.take(idx)
-        steps = local_steps_m(sub)[:, :2]
-        dt = np.diff(sub.time_s)
-        same_seg = np.diff(sub.segment) == 0
-        ok_dt = dt > 0
-        vel = np.where((same_seg & ok_dt)[:, None], steps / np.where(ok_dt, dt, 1.0)[:, None], np.nan)
-        # acceleration at interior fixes from the two adjacent step velocities
-        span = 0.5 * (dt[1:] + dt[:-1])
-        acc = np.linalg.norm(vel[1:] - vel[:-1], axis=1) / np.where(span > 0, span, np.nan)
-        speed = np.linalg.norm(vel, axis=1)
-        a_lim = np.nanmedian(acc) + z * robust_sigma(acc) if np.isfinite(acc).any() else np.inf
-        v_lim = np.nanmedian(speed) + z * robust_sigma(speed) if np.isfinite(speed).any() else np.inf
-        a_full = np.r_[np.nan, acc, np.nan]
-        left = np.r_[np.nan, a_full[:-1]]
-        right = np.r_[a_full[1:], np.nan]
-        peak = (a_full >= np.fmax(left, 0)) & (a_full >= np.fmax(right, 0))
-        bad = (a_full > a_lim) & peak
-        # Spikes where both steps are impossibly fast (catches jumps the acceleration test
-        # cannot see at segment ends).
-        v_in = np.r_[np.nan, speed]
-        v_out = np.r_[speed, np.nan]
-        bad |= (np.nan_to_num(v_in) > v_lim) & (np.nan_to_num(v_out) > v_lim)
-        ends = np.isnan(v_in) ^ np.isnan(v_out)
-        bad |= ends & (np.fmax(np.nan_to_num(v_in), np.nan_to_num(v_out)) > 2 * v_lim)
+        # Horizontal positions in metres relative to the first fix (equirectangular per step).
+        pos = np.r_[np.zeros((1, 2)), np.cumsum(local_steps_m(sub)[:, :2], axis=0)]
+        t = sub.time_s
+        seg = sub.segment
+        i = np.arange(2, len(sub) - 2)
+        same = (seg[i - 2] == seg[i]) & (seg[i + 2] == seg[i])
+        nodes = np.stack([t[i - 2], t[i - 1], t[i + 1], t[i + 2]], axis=1)
+        distinct = np.all(np.diff(nodes, axis=1) > 0, axis=1) & (nodes[:, 1] < t[i]) & (t[i] < nodes[:, 2])
+        i = i[same & distinct]
+        if i.size == 0:
+            break
+        nodes = np.stack([t[i - 2], t[i - 1], t[i + 1], t[i + 2]], axis=1)
+        weights = _lagrange_weights(nodes, t[i])
+        neighbours = np.stack([pos[i - 2], pos[i - 1], pos[i + 1], pos[i + 2]], axis=1)  # (m, 4, 2)
+        resid = pos[i] - np.einsum("mk,mkd->md", weights, neighbours)
+        sigma = robust_sigma(resid.ravel())
+        if not sigma > 0:
+            break
+        size = np.linalg.norm(resid, axis=1)
+        full = np.zeros(len(sub))
+        full[i] = size
+        peak = (full >= np.r_[0.0, full[:-1]]) & (full >= np.r_[full[1:], 0.0])
+        bad = (full > z * sigma) & peak
         if not bad.any():
             break
         suspect[idx[bad]] = True
     return suspect
+
+
+def _lagrange_weights(nodes: np.ndarray, at: np.ndarray) -> np.ndarray:
+    """(m, k) weights of the Lagrange polynomial through ``nodes[m, :]`` evaluated at ``at[m]``."""
+    k = nodes.shape[1]
+    w = np.ones_like(nodes)
+    for j in range(k):  # loops over the 4 nodes, not over fixes
+        for q in range(k):
+            if q != j:
+                w[:, j] *= (at - nodes[:, q]) / (nodes[:, j] - nodes[:, q])
+    return w
 
 
 def estimate_noise_m(steps_m: np.ndarray) -> float:
