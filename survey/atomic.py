@@ -38,6 +38,8 @@ def atomic_open(path: str | os.PathLike[str], mode: str = "w", **kwargs) -> Iter
     target = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent or ".")
     try:
+        # mkstemp creates 0600; give the file the mode a plain open() would (0666 less umask).
+        os.chmod(tmp, 0o666 & ~_current_umask())
         with os.fdopen(fd, mode, **kwargs) as fh:
             yield fh
             fh.flush()
@@ -54,6 +56,12 @@ def atomic_write_bytes(path: str | os.PathLike[str], data: bytes) -> None:
     """Write ``data`` to ``path`` atomically."""
     with atomic_open(path, "wb") as fh:
         fh.write(data)
+
+
+def _current_umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def _fsync_dir(folder: Path) -> None:
