@@ -40,6 +40,7 @@ is an ``InputError`` naming the line.
 
 from __future__ import annotations
 
+import codecs
 import csv
 import io
 import math
@@ -210,7 +211,12 @@ def read_csv(
 
 
 def _decode(path: str, data: bytes) -> str:
-    """UTF-8 (with or without BOM), else Latin-1; refuse binary data."""
+    """UTF-8 (with or without BOM), UTF-16 with BOM, else Latin-1; refuse binary data."""
+    if data.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+        try:
+            return data.decode("utf-16")
+        except UnicodeDecodeError:
+            raise InputError(path, "text starts like UTF-16 but does not decode as UTF-16") from None
     head = data[:65536]
     if b"\x00" in head or sum(head.count(bytes([c])) for c in _BINARY_CONTROL) > len(head) // 100:
         raise InputError(path, "binary data, not a CSV text file")
@@ -435,10 +441,13 @@ def _times(
         try:
             stamp, dated = _parse_stamp(cell, dates[i] if dates is not None else "")
         except ValueError:
+            problem = (
+                "is a number but other rows hold date-times"
+                if _is_number(cell)
+                else "is neither a number nor ISO 8601"
+            )
             raise InputError(
-                path,
-                f"time {cell!r} in column {column!r} is neither a number nor ISO 8601",
-                f"line {line_no[i]}",
+                path, f"time {cell!r} in column {column!r} {problem}", f"line {line_no[i]}"
             ) from None
         time_only[i] = not dated
         if stamp.tzinfo is None:

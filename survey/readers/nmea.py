@@ -21,7 +21,7 @@ Decisions (documented here because a log does not say)
   loss, full card) and is skipped as ``"no checksum"``.
 * One fix per epoch: consecutive sentences with the same time of day are merged. Position comes
   from GGA, else GNS, else RMC; speed from RMC, else VTG; date from RMC.
-* Invalid fixes are dropped and counted: GGA quality 0 (``"invalid fix (GGA quality 0)"``), RMC
+* Each sentence is judged on its own. Invalid fixes are dropped and counted: GGA quality 0 (``"invalid fix (GGA quality 0)"``), RMC
   status ``V`` or mode ``N`` (``"void fix (RMC status V)"``), GNS with every mode ``N``, VTG
   mode ``N`` (speed ignored).
 * Dates: GGA has time of day only; every epoch takes the date of the nearest RMC before it (or,
@@ -240,9 +240,8 @@ def _verify_checksums(
     if len(starts) == 0:
         empty = np.zeros(0, dtype=np.int64)
         return empty, empty.astype(bool), empty.astype(bool)
-    stars_all = np.flatnonzero(buf == 0x2A)
-    last = np.searchsorted(stars_all, ends) - 1  # last '*' before the sentence end
-    star = np.where(last >= 0, stars_all[np.maximum(last, 0)], -1)
+    stars_all = np.concatenate(([-1], np.flatnonzero(buf == 0x2A)))  # -1: "no star" sentinel
+    star = stars_all[np.searchsorted(stars_all, ends) - 1]  # last '*' before the sentence end
     has_star = (star > starts) & (star + 2 < ends)
     hi = _HEX[buf[np.clip(star + 1, 0, n - 1)]]
     lo = _HEX[buf[np.clip(star + 2, 0, n - 1)]]
