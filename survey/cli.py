@@ -13,7 +13,7 @@ from . import __version__
 from .errors import InputError
 
 #: Sub-command modules under ``survey.commands``, in the order ``--help`` lists them.
-COMMANDS = ("demo", "info", "profile", "flag")
+COMMANDS = ("demo", "view", "info", "profile", "flag", "batch")
 
 
 def build_parser() -> argparse.ArgumentParser:
