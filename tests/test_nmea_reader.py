@@ -75,6 +75,14 @@ def test_lower_case_hex_checksum_is_accepted():
     assert len(track) == 1 and not track.source.skipped
 
 
+def test_blanks_after_the_checksum_are_allowed_but_text_is_not():
+    body = "GPGGA,120000,4807.038,N,01131.000,E,1,08,0.9,545.4,M,46.9,M,,"
+    good = sentence("GPGGA,120001,4807.038,N,01131.000,E,1,08,0.9,545.4,M,46.9,M,,")
+    track = read_nmea("a.nmea", log(sentence(body) + " \t", sentence(body) + "xyz", good))
+    assert len(track) == 2
+    assert track.source.skipped == {"no checksum": 1}
+
+
 def test_sentence_without_checksum_is_skipped_when_the_log_has_checksums():
     # A missing checksum among checksummed sentences is a line cut short (decision in nmea.py).
     good = sentence("GPGGA,120000,4807.038,N,01131.000,E,1,08,0.9,545.4,M,46.9,M,,")

@@ -59,6 +59,7 @@ SECONDS_PER_DAY = 86400.0
 #: A fall in time of day larger than this between consecutive epochs is a midnight rollover.
 ROLLOVER_S = SECONDS_PER_DAY / 2
 
+_BLANK = bytes(range(0x21))  # control characters and space
 _USED_TYPES = (b"GGA", b"RMC", b"GNS", b"VTG")
 _HEX = np.full(256, -1, dtype=np.int16)
 for _i, _c in enumerate(b"0123456789ABCDEF"):
@@ -215,15 +216,15 @@ def _split_sentences(data: bytes) -> tuple[tuple[np.ndarray, np.ndarray], int, i
     next_dollar = np.append(dollars[1:], n)
     ends = np.minimum(next_nl, next_dollar)
 
-    # Non-blank lines with no '$' at all (comments, AIS '!' sentences, garbage).
+    # Non-blank lines with no '$' at all (comments, AIS '!' sentences, garbage): rare, so the
+    # blank test runs only on the lines that hold no '$'.
     line_starts = np.concatenate(([0], newlines + 1))
     line_ends = np.append(newlines, n)
-    keep = line_ends > line_starts
-    line_starts, line_ends = line_starts[keep], line_ends[keep]
-    printable = np.concatenate(([0], np.cumsum(buf > 0x20)))
-    non_blank = (printable[line_ends] - printable[line_starts]) > 0
     n_dollar = np.searchsorted(dollars, line_ends) - np.searchsorted(dollars, line_starts)
-    no_dollar = int(np.count_nonzero(non_blank & (n_dollar == 0)))
+    bare = np.flatnonzero((n_dollar == 0) & (line_ends > line_starts))
+    no_dollar = sum(
+        1 for i in bare.tolist() if data[line_starts[i] : line_ends[i]].strip(_BLANK)
+    )
     return (dollars, ends), len(dollars) + no_dollar, no_dollar
 
 
@@ -246,10 +247,9 @@ def _verify_checksums(
     hi = _HEX[buf[np.clip(star + 1, 0, n - 1)]]
     lo = _HEX[buf[np.clip(star + 2, 0, n - 1)]]
     has_star &= (hi >= 0) & (lo >= 0)
-    # Only whitespace may follow the two hex digits.
-    printable = np.concatenate(([0], np.cumsum(buf > 0x20)))
-    tail_from = np.clip(star + 3, starts, ends)
-    has_star &= printable[ends] == printable[tail_from]
+    # Only blanks may follow the two hex digits (checked one by one: trailing text is rare).
+    for i in np.flatnonzero(has_star & (star + 3 < ends)).tolist():
+        has_star[i] = not data[star[i] + 3 : ends[i]].strip(_BLANK)
     # XOR of the bytes strictly between '$' and '*' = acc[star - 1] ^ acc[start].
     acc = np.bitwise_xor.accumulate(buf)
     body_xor = acc[np.clip(star - 1, 0, n - 1)] ^ acc[starts]
@@ -262,25 +262,38 @@ def _classify(
 ) -> tuple[list[bytes | None], dict[str, int]]:
     """Sentence type of each sentence (``b"GGA"`` ...), ``None`` for types not used.
 
-    Returns the kinds and a count of ignored types by name (e.g. ``{"GSV": 120, "P...": 4}``).
+    A standard address is five characters (talker id + type) followed by ``,`` or the end of the
+    body. Returns the kinds and a count of ignored types by name (e.g. ``{"GSV": 120, "P...": 4}``).
     """
-    kinds: list[bytes | None] = []
+    m = len(starts)
+    pad = np.frombuffer(data + b"\0" * 7, dtype=np.uint8)
+    window = pad[starts[:, None] + np.arange(1, 7)]  # the 6 bytes after '$'
+    proprietary = window[:, 0] == ord("P")
+    standard = (
+        ~proprietary
+        & (starts + 6 <= body_ends)
+        & ((window[:, 5] == ord(",")) | (starts + 6 == body_ends))
+        & (window[:, :5] >= ord("0")).all(axis=1)
+        & (window[:, :5] <= ord("Z")).all(axis=1)
+    )
+    code = (window[:, 2].astype(np.int32) << 16) | (window[:, 3].astype(np.int32) << 8) | window[:, 4]
+    kinds: list[bytes | None] = [None] * m
+    used = np.zeros(m, dtype=bool)
+    for kind in _USED_TYPES:
+        hit = standard & (code == int.from_bytes(kind, "big"))
+        used |= hit
+        for i in np.flatnonzero(hit).tolist():
+            kinds[i] = kind
     ignored: dict[str, int] = {}
-    for s, e in zip(starts.tolist(), body_ends.tolist()):
-        comma = data.find(b",", s, e)
-        address = data[s + 1 : comma if comma >= 0 else e]
-        kind = address[2:] if len(address) == 5 and not address.startswith(b"P") else None
-        if kind in _USED_TYPES:
-            kinds.append(kind)
-            continue
-        kinds.append(None)
-        name = "P..." if address.startswith(b"P") else (kind or address[-3:]).decode(
-            "ascii", "replace"
-        )
-        if name.isprintable() and name:
-            ignored[name] = ignored.get(name, 0) + 1
-        else:
-            ignored["unreadable"] = ignored.get("unreadable", 0) + 1
+    if proprietary.any():
+        ignored["P..."] = int(np.count_nonzero(proprietary))
+    unreadable = int(np.count_nonzero(~standard & ~proprietary))
+    if unreadable:
+        ignored["unreadable"] = unreadable
+    values, counts = np.unique(code[standard & ~used], return_counts=True)
+    for v, c in zip(values.tolist(), counts.tolist()):
+        name = int(v).to_bytes(3, "big").decode("ascii")
+        ignored[name] = ignored.get(name, 0) + c
     return kinds, ignored
 
 
