@@ -19,7 +19,13 @@ from survey.track import HEIGHT_ELLIPSOID, HEIGHT_MSL, HEIGHT_NONE, HEIGHT_UNKNO
 
 def epoch_s(iso: str) -> float:
     """UNIX seconds of an ISO 8601 UTC time, by numpy.datetime64 (an independent parser)."""
-    return float((np.datetime64(iso, "ns") - np.datetime64("1970-01-01T00:00:00", "ns")) / np.timedelta64(1, "ns")) / 1e9
+    return (
+        float(
+            (np.datetime64(iso, "ns") - np.datetime64("1970-01-01T00:00:00", "ns"))
+            / np.timedelta64(1, "ns")
+        )
+        / 1e9
+    )
 
 
 def csv_bytes(*lines: str, eol: str = "\n") -> bytes:
@@ -33,7 +39,8 @@ def test_header_names_with_units_and_mixed_case_are_recognised():
     track = read_csv(
         "a.csv",
         csv_bytes(
-            "Time,Latitude (deg),LONGITUDE (deg),Altitude [m],Speed (m/s),Horizontal_Accuracy,HDOP,Sats",
+            "Time,Latitude (deg),LONGITUDE (deg),Altitude [m],Speed (m/s),"
+            "Horizontal_Accuracy,HDOP,Sats",
             "2024-05-01T12:00:00Z,48.1173,11.5167,545.4,3.5,2.5,0.9,8",
         ),
     )
@@ -60,18 +67,23 @@ def test_common_header_spellings_and_delimiters(header):
     row = delim.join(["1714564800", "-33.5", "151.25", "12.5"])
     track = read_csv("a.csv", csv_bytes(header, row))
     assert (track.time_s[0], track.lat_deg[0], track.lon_deg[0], track.height_m[0]) == (
-        1714564800.0, -33.5, 151.25, 12.5,
+        1714564800.0,
+        -33.5,
+        151.25,
+        12.5,
     )
 
 
 def test_semicolon_file_with_decimal_commas():
     track = read_csv("a.csv", csv_bytes("time;lat;lon;alt", "1714564800,5;48,1173;11,5167;545,4"))
     assert track.time_s[0] == 1714564800.5
-    assert track.lat_deg[0] == 48.1173 and track.lon_deg[0] == 11.5167 and track.height_m[0] == 545.4
+    assert (
+        track.lat_deg[0] == 48.1173 and track.lon_deg[0] == 11.5167 and track.height_m[0] == 545.4
+    )
 
 
 def test_quoted_fields_and_utf8_bom_are_handled():
-    data = "\ufeff\"time\",\"lat\",\"lon\",\"site\"\n\"1714564800\",\"48.1\",\"11.5\",\"Fenwick Cut, north\"\n"
+    data = '\ufeff"time","lat","lon","site"\n"1714564800","48.1","11.5","Fenwick Cut, north"\n'
     track = read_csv("a.csv", data.encode("utf-8"))
     assert len(track) == 1 and track.lat_deg[0] == 48.1
 
@@ -149,7 +161,8 @@ def test_naive_iso_times_are_taken_as_utc_with_a_note():
 
 def test_separate_date_and_time_columns_are_joined():
     track = read_csv(
-        "a.csv", csv_bytes("date,time,lat,lon", "2024-02-29,23:59:59Z,1,2", "2024-03-01,00:00:01Z,1,2")
+        "a.csv",
+        csv_bytes("date,time,lat,lon", "2024-02-29,23:59:59Z,1,2", "2024-03-01,00:00:01Z,1,2"),
     )
     assert track.time_s.tolist() == [epoch_s("2024-02-29T23:59:59"), epoch_s("2024-03-01T00:00:01")]
 

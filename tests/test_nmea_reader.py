@@ -120,13 +120,17 @@ def test_widely_reproduced_gga_example_decodes_to_expected_position_and_height()
 
 
 def test_gga_without_geoid_separation_is_labelled_msl():
-    track = read_nmea("a.nmea", log(sentence("GPGGA,123519,4807.038,N,01131.000,E,1,08,0.9,545.4,M,,M,,")))
+    track = read_nmea(
+        "a.nmea", log(sentence("GPGGA,123519,4807.038,N,01131.000,E,1,08,0.9,545.4,M,,M,,"))
+    )
     assert track.height_ref == HEIGHT_MSL
     assert track.height_m[0] == pytest.approx(545.4)
 
 
 def test_south_and_west_hemispheres_are_negative():
-    track = read_nmea("a.nmea", log(sentence("GPGGA,010203,3352.128,S,15112.558,W,1,08,0.9,10.0,M,20.0,M,,")))
+    track = read_nmea(
+        "a.nmea", log(sentence("GPGGA,010203,3352.128,S,15112.558,W,1,08,0.9,10.0,M,20.0,M,,"))
+    )
     # NMEA 0183: S latitudes and W longitudes are negative in signed decimal degrees.
     assert track.lat_deg[0] == pytest.approx(-(33 + 52.128 / 60), abs=1e-12)
     assert track.lon_deg[0] == pytest.approx(-(151 + 12.558 / 60), abs=1e-12)
@@ -134,7 +138,12 @@ def test_south_and_west_hemispheres_are_negative():
 
 def test_three_digit_longitude_degrees_and_long_minute_fractions():
     track = read_nmea(
-        "a.nmea", log(sentence("GNGGA,010203.25,0000.00000001,N,17959.9999999,E,4,30,0.5,1.0,M,2.0,M,1.0,0000"))
+        "a.nmea",
+        log(
+            sentence(
+                "GNGGA,010203.25,0000.00000001,N,17959.9999999,E,4,30,0.5,1.0,M,2.0,M,1.0,0000"
+            )
+        ),
     )
     assert track.lat_deg[0] == pytest.approx(0.00000001 / 60, abs=1e-15)
     assert track.lon_deg[0] == pytest.approx(179 + 59.9999999 / 60, abs=1e-12)
@@ -274,7 +283,9 @@ def test_other_sentence_types_are_ignored_and_noted():
 
 def test_text_lines_that_are_not_sentences_are_counted():
     good = sentence("GPGGA,120000,4807.038,N,01131.000,E,1,08,0.9,545.4,M,46.9,M,,")
-    track = read_nmea("a.nmea", log("# logger v2, crew Tamsin Vale", good, "", "!AIVDM,1,1,,A,x,0*00"))
+    track = read_nmea(
+        "a.nmea", log("# logger v2, crew Tamsin Vale", good, "", "!AIVDM,1,1,,A,x,0*00")
+    )
     assert len(track) == 1
     assert track.source.skipped == {"not an NMEA sentence": 2}
 

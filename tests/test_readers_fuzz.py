@@ -42,7 +42,10 @@ def gga(tod_s: int, lat: float, lon: float, alt: float, sep: float, quality: int
     hh, mm, ss = tod_s // 3600, tod_s // 60 % 60, tod_s % 60
     la, ns = nmea_coord(lat, 2, "N", "S")
     lo, ew = nmea_coord(lon, 3, "E", "W")
-    body = f"GPGGA,{hh:02d}{mm:02d}{ss:02d},{la},{ns},{lo},{ew},{quality},08,0.9,{alt:.1f},M,{sep:.1f},M,,"
+    body = (
+        f"GPGGA,{hh:02d}{mm:02d}{ss:02d},{la},{ns},{lo},{ew},{quality},08,0.9,"
+        f"{alt:.1f},M,{sep:.1f},M,,"
+    )
     return f"${body}*{xor_checksum(body):02X}"
 
 
@@ -82,7 +85,12 @@ def read_or_input_error(reader, data: bytes) -> Track | None:
 lats = st.floats(-89.999, 89.999, allow_nan=False)
 lons = st.floats(-179.999, 179.999, allow_nan=False)
 fix = st.tuples(
-    st.integers(0, 86399), lats, lons, st.floats(-400, 8000), st.floats(-100, 100), st.integers(0, 5)
+    st.integers(0, 86399),
+    lats,
+    lons,
+    st.floats(-400, 8000),
+    st.floats(-100, 100),
+    st.integers(0, 5),
 )
 day = st.dates().filter(lambda d: 1980 <= d.year <= 2079).map(lambda d: d.strftime("%d%m%y"))
 
@@ -135,7 +143,13 @@ def test_random_sentence_like_text_gives_input_error_or_a_valid_track(parts):
 
 
 @SETTINGS
-@given(tod=st.integers(0, 86399), lat=lats, lon=lons, alt=st.floats(-400, 8000), sep=st.floats(-100, 100))
+@given(
+    tod=st.integers(0, 86399),
+    lat=lats,
+    lon=lons,
+    alt=st.floats(-400, 8000),
+    sep=st.floats(-100, 100),
+)
 def test_valid_gga_round_trips_position_and_height(tod, lat, lon, alt, sep):
     track = read_nmea("fuzz", (gga(tod, lat, lon, alt, sep) + "\n").encode())
     # Minutes written with 6 decimals: error <= 0.5e-6 min = 8.3e-9 deg (plus float rounding).
@@ -147,8 +161,13 @@ def test_valid_gga_round_trips_position_and_height(tod, lat, lon, alt, sep):
 
 @SETTINGS
 @given(
-    tod=st.integers(0, 86399), lat=lats, lon=lons, alt=st.floats(-400, 8000), sep=st.floats(-100, 100),
-    pos=st.integers(0, 200), byte=st.integers(0, 255),
+    tod=st.integers(0, 86399),
+    lat=lats,
+    lon=lons,
+    alt=st.floats(-400, 8000),
+    sep=st.floats(-100, 100),
+    pos=st.integers(0, 200),
+    byte=st.integers(0, 255),
 )
 def test_one_corrupted_byte_never_changes_a_checksummed_fix(tod, lat, lon, alt, sep, pos, byte):
     # NMEA 0183 checksum: XOR detects every single-byte change inside the sentence body.
@@ -164,7 +183,7 @@ def test_one_corrupted_byte_never_changes_a_checksummed_fix(tod, lat, lon, alt, 
         assert track.height_m[0] == clean.height_m[0] and track.time_s[0] == clean.time_s[0]
 
 
-# --- CSV --------------------------------------------------------------------------------------------
+# --- CSV --------------------------------------------------------------------------------------
 
 HEADERS = ["time", "lat", "lon", "alt", "speed_kmh", "hdop", "sats", "accuracy_m"]
 cells = {

@@ -60,9 +60,24 @@ ROLES = ("time", "date", "lat", "lon", "height", "speed", "accuracy", "hdop", "s
 
 _NAMES: dict[str, set[str]] = {
     "time": {
-        "time", "timestamp", "datetime", "date_time", "utc", "epoch", "unix_time", "unixtime",
-        "unix", "gps_time", "utc_time", "time_utc", "timestamp_utc", "utc_timestamp", "epoch_time",
-        "gpstime", "utctime", "t",
+        "time",
+        "timestamp",
+        "datetime",
+        "date_time",
+        "utc",
+        "epoch",
+        "unix_time",
+        "unixtime",
+        "unix",
+        "gps_time",
+        "utc_time",
+        "time_utc",
+        "timestamp_utc",
+        "utc_timestamp",
+        "epoch_time",
+        "gpstime",
+        "utctime",
+        "t",
     },
     "date": {"date", "utc_date", "gps_date", "date_utc"},
     "lat": {"lat", "latitude", "gps_lat", "gps_latitude"},
@@ -70,19 +85,63 @@ _NAMES: dict[str, set[str]] = {
     "height": {"alt", "altitude", "ele", "elev", "elevation", "height", "h", "gps_alt", "z"},
     "speed": {"speed", "spd", "sog", "velocity", "ground_speed", "gps_speed", "speed_over_ground"},
     "accuracy": {
-        "accuracy", "acc", "hacc", "h_acc", "horizontal_accuracy", "horiz_accuracy",
-        "horizontal_acc", "eph", "position_accuracy",
+        "accuracy",
+        "acc",
+        "hacc",
+        "h_acc",
+        "horizontal_accuracy",
+        "horiz_accuracy",
+        "horizontal_acc",
+        "eph",
+        "position_accuracy",
     },
     "hdop": {"hdop"},
     "satellites": {
-        "sats", "satellites", "sat", "num_sats", "nsat", "nsats", "numsv", "satellites_used",
-        "sats_used", "num_satellites",
+        "sats",
+        "satellites",
+        "sat",
+        "num_sats",
+        "nsat",
+        "nsats",
+        "numsv",
+        "satellites_used",
+        "sats_used",
+        "num_satellites",
     },
 }
 _UNIT_TOKENS = {
-    "m", "meter", "meters", "metre", "metres", "deg", "degree", "degrees", "dd", "wgs84",
-    "s", "sec", "secs", "seconds", "ms", "msec", "millis", "milliseconds", "us", "ns",
-    "mps", "kmh", "kph", "km", "h", "kn", "kt", "kts", "knots", "mph", "iso", "iso8601",
+    "m",
+    "meter",
+    "meters",
+    "metre",
+    "metres",
+    "deg",
+    "degree",
+    "degrees",
+    "dd",
+    "wgs84",
+    "s",
+    "sec",
+    "secs",
+    "seconds",
+    "ms",
+    "msec",
+    "millis",
+    "milliseconds",
+    "us",
+    "ns",
+    "mps",
+    "kmh",
+    "kph",
+    "km",
+    "h",
+    "kn",
+    "kt",
+    "kts",
+    "knots",
+    "mph",
+    "iso",
+    "iso8601",
 }
 _ELLIPSOID_TOKENS = {"ellipsoid", "ellipsoidal", "ell", "hae", "ellips"}
 _MSL_TOKENS = {"msl", "amsl", "orthometric", "ortho", "geoid", "mean_sea_level"}
@@ -216,7 +275,9 @@ def _decode(path: str, data: bytes) -> str:
         try:
             return data.decode("utf-16")
         except UnicodeDecodeError:
-            raise InputError(path, "text starts like UTF-16 but does not decode as UTF-16") from None
+            raise InputError(
+                path, "text starts like UTF-16 but does not decode as UTF-16"
+            ) from None
     head = data[:65536]
     if b"\x00" in head or sum(head.count(bytes([c])) for c in _BINARY_CONTROL) > len(head) // 100:
         raise InputError(path, "binary data, not a CSV text file")
@@ -379,8 +440,9 @@ def _to_float(
         values = None
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        raise InputError(path, f"{what} {cells[i]!r} in column {column!r} is not a number",
-                         f"line {line_no[i]}")
+        raise InputError(
+            path, f"{what} {cells[i]!r} in column {column!r} is not a number", f"line {line_no[i]}"
+        )
     return values
 
 
@@ -396,8 +458,9 @@ def _check_range(path: str, values: np.ndarray, line_no: np.ndarray, what: str, 
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
         shown = "missing" if np.isnan(values[i]) else f"{values[i]:g} is out of range"
-        raise InputError(path, f"{what} {shown} (must be within +-{limit:g} deg)",
-                         f"line {line_no[i]}")
+        raise InputError(
+            path, f"{what} {shown} (must be within +-{limit:g} deg)", f"line {line_no[i]}"
+        )
 
 
 def _speed_factor(name: str) -> tuple[float, str]:
@@ -429,7 +492,9 @@ def _times(
     decimal_comma: bool,
 ) -> tuple[np.ndarray, list[str]]:
     """Time cells (and optional date cells) -> s since 1970-01-01 UTC, plus notes."""
-    numeric = _numeric_times([c.replace(",", ".") for c in cells] if decimal_comma else cells, column)
+    numeric = _numeric_times(
+        [c.replace(",", ".") for c in cells] if decimal_comma else cells, column
+    )
     if numeric is not None:
         return numeric
     out = np.full(len(cells), np.nan)
@@ -498,9 +563,13 @@ def _numeric_times(cells: list[str], column: str) -> tuple[np.ndarray, list[str]
         if typical > threshold:
             scale, unit = factor, name
             break
-    for token, factor, name in (("ms", 1e-3, "milliseconds"), ("millis", 1e-3, "milliseconds"),
-                                ("milliseconds", 1e-3, "milliseconds"), ("us", 1e-6, "microseconds"),
-                                ("ns", 1e-9, "nanoseconds")):
+    for token, factor, name in (
+        ("ms", 1e-3, "milliseconds"),
+        ("millis", 1e-3, "milliseconds"),
+        ("milliseconds", 1e-3, "milliseconds"),
+        ("us", 1e-6, "microseconds"),
+        ("ns", 1e-9, "nanoseconds"),
+    ):
         if token in tokens:
             scale, unit = factor, name
     if unit != "seconds":

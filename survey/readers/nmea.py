@@ -21,9 +21,10 @@ Decisions (documented here because a log does not say)
   loss, full card) and is skipped as ``"no checksum"``.
 * One fix per epoch: consecutive sentences with the same time of day are merged. Position comes
   from GGA, else GNS, else RMC; speed from RMC, else VTG; date from RMC.
-* Each sentence is judged on its own. Invalid fixes are dropped and counted: GGA quality 0 (``"invalid fix (GGA quality 0)"``), RMC
-  status ``V`` or mode ``N`` (``"void fix (RMC status V)"``), GNS with every mode ``N``, VTG
-  mode ``N`` (speed ignored).
+* Each sentence is judged on its own. Invalid fixes are dropped and counted: GGA quality 0
+  (``"invalid fix (GGA quality 0)"``), RMC status ``V`` or mode ``N``
+  (``"void fix (RMC status V)"``), GNS with every mode ``N`` (``"invalid fix (GNS mode N)"``);
+  a VTG with mode ``N`` gives no speed.
 * Dates: GGA has time of day only; every epoch takes the date of the nearest RMC before it (or,
   before the first RMC, the first RMC date), and a time of day that falls back by more than
   12 h between consecutive epochs is a midnight rollover (+1 day). With no RMC date anywhere,
@@ -222,9 +223,7 @@ def _split_sentences(data: bytes) -> tuple[tuple[np.ndarray, np.ndarray], int, i
     line_ends = np.append(newlines, n)
     n_dollar = np.searchsorted(dollars, line_ends) - np.searchsorted(dollars, line_starts)
     bare = np.flatnonzero((n_dollar == 0) & (line_ends > line_starts))
-    no_dollar = sum(
-        1 for i in bare.tolist() if data[line_starts[i] : line_ends[i]].strip(_BLANK)
-    )
+    no_dollar = sum(1 for i in bare.tolist() if data[line_starts[i] : line_ends[i]].strip(_BLANK))
     return (dollars, ends), len(dollars) + no_dollar, no_dollar
 
 
@@ -276,7 +275,9 @@ def _classify(
         & (window[:, :5] >= ord("0")).all(axis=1)
         & (window[:, :5] <= ord("Z")).all(axis=1)
     )
-    code = (window[:, 2].astype(np.int32) << 16) | (window[:, 3].astype(np.int32) << 8) | window[:, 4]
+    code = (
+        (window[:, 2].astype(np.int32) << 16) | (window[:, 3].astype(np.int32) << 8) | window[:, 4]
+    )
     kinds: list[bytes | None] = [None] * m
     used = np.zeros(m, dtype=bool)
     for kind in _USED_TYPES:
@@ -363,7 +364,18 @@ def _rmc(f: list[str], ep: _Epoch) -> str | None:
         raise _Malformed
     status = f[2]
     mode = f[12] if len(f) > 12 else ""
-    if status not in ("A", "V") or mode[:1] not in ("", "A", "D", "E", "F", "M", "P", "R", "S", "N"):
+    if status not in ("A", "V") or mode[:1] not in (
+        "",
+        "A",
+        "D",
+        "E",
+        "F",
+        "M",
+        "P",
+        "R",
+        "S",
+        "N",
+    ):
         raise _Malformed
     if status == "V" or mode[:1] == "N":
         return SKIP_RMC_VOID
@@ -464,7 +476,11 @@ def _coord(value: str, hemi: str, deg_digits: int, pos: str, neg: str, limit: fl
     dot = value.find(".")
     whole = value if dot < 0 else value[:dot]
     frac = "" if dot < 0 else value[dot + 1 :]
-    if not (3 <= len(whole) <= deg_digits + 2) or not whole.isdigit() or (frac and not frac.isdigit()):
+    if (
+        not (3 <= len(whole) <= deg_digits + 2)
+        or not whole.isdigit()
+        or (frac and not frac.isdigit())
+    ):
         raise _Malformed
     degrees = int(whole[:-2])
     minutes = float(whole[-2:] + "." + (frac or "0"))
