@@ -131,7 +131,7 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, *
         if last_pos is not None:
             s_offset += float(np.linalg.norm(np.nan_to_num(start - last_pos)))
         s_abs = sg + s_offset
-        first = np.ceil(s_abs[0] / step_m - 1e-9) * step_m
+        first = np.ceil(s_abs[0] / step_m - 1e-9) * step_m + 0.0  # never -0.0
         chain = np.arange(first, s_abs[-1] + 1e-9, step_m)
         if len(chain) == 0:
             messages.append(f"segment {sid}: shorter than one station step; skipped")
