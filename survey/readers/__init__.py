@@ -79,7 +79,7 @@ def read_log(
         ``"gpx"``, ``"nmea"`` or ``"csv"`` to override detection.
     csv_columns
         CSV only: explicit mapping of role -> column name (roles: ``time``, ``lat``, ``lon``,
-        ``height``, ``speed``, ``accuracy``, ``hdop``, ``satellites``).
+        ``height``, ``speed``, ``accuracy``, ``hdop``, ``satellites``, ``date`` for a separate date column).
     height_ref
         CSV only: what the height column is measured from (``"ellipsoid"`` or ``"msl"``).
     """
