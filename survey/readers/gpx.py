@@ -18,6 +18,8 @@ http://www.topografix.com/GPX/1/0):
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 
 from ..errors import InputError
@@ -30,6 +32,7 @@ __all__ = ["read_gpx"]
 READER_BULK = "gpx-bulk"
 READER_SAFE = "gpx-safe"
 MODES = ("auto", "safe", "bulk")
+_BLANK_RE = re.compile(rb"(?:\xef\xbb\xbf)?[ \t\r\n]*\Z")
 
 
 def read_gpx(path: str, data: bytes, mode: str = "auto") -> Track:
@@ -86,13 +89,14 @@ def refuse_unsafe(path: str, data: bytes) -> None:
                 break
             except UnicodeError:
                 continue
-    if not body.strip(b" \t\r\n\xef\xbb\xbf"):
+    if _BLANK_RE.match(body):
         raise InputError(path, "file is empty")
-    for word in (b"<!DOCTYPE", b"<!ENTITY", b"<!doctype"):
-        at = body.find(word)
-        if at >= 0:
+    at = body.find(b"<!")
+    while at >= 0:  # one scan: comments and CDATA also start with "<!"
+        if body[at + 2 : at + 9].upper() == b"DOCTYPE" or body[at + 2 : at + 8].upper() == b"ENTITY":
             line = body.count(b"\n", 0, at) + 1
             raise InputError(path, "refused: XML with a DTD or entity declaration (GPX needs none)", f"line {line}")
+        at = body.find(b"<!", at + 2)
 
 
 def _to_track(path: str, fx: Fixes, reader: str) -> Track:

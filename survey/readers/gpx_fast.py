@@ -22,6 +22,7 @@ Routes (files without track points) always take the safe path.
 from __future__ import annotations
 
 import codecs
+import functools
 import re
 
 import numpy as np
@@ -30,42 +31,109 @@ from lxml import etree
 from .gpx_safe import XML_OPTIONS, Fixes, TimeError, gpx_times_to_epoch, root_format
 
 _WS = rb"[ \t\r\n]*"
-_NUM = rb"[ \t\r\n]*([-+]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][-+]?[0-9]+)?)[ \t\r\n]*"
+_WS1 = rb"[ \t\r\n]+"
+# Numbers: a run of number characters; numpy's float conversion then rejects anything that is
+# not a decimal number (e.g. "1.2.3", "+-1", "e5"), which sends the file to the safe path.
+_NUM = _WS + rb"([-+0-9.eE]+)" + _WS
 _TEXT = rb"(?:[^<>&\x00-\x08\x0b\x0c\x0e-\x1f]|&(?:amp|lt|gt|quot|apos|#[0-9]{1,7}|#x[0-9a-fA-F]{1,6});)*"
-_TIME = (
-    rb"([0-9]{4}-[0-9]{2}-[0-9]{2}T[0-9]{2}:[0-9]{2}:[0-9]{2})(?:\.([0-9]{1,9}))?(Z|[-+][0-9]{2}:[0-9]{2})?"
-)
+# Time: 19 characters of date and clock, optional '.fraction', optional offset; the exact shape
+# (digits, separators, ranges) is checked by gpx_safe.gpx_times_to_epoch.
+_TIME = rb"<time>" + _WS + rb"([0-9T:-]{19}[.0-9]{0,10}[-+Z0-9:]{0,6})" + _WS + rb"</time>" + _WS
 # Plain-text children of wptType that may sit between time and sat (GPX 1.0 and 1.1 names), and
 # those after hdop. Their text is ignored, so their order among themselves is not enforced.
 _BEFORE_SAT = (b"course", b"speed", b"magvar", b"geoidheight", b"name", b"cmt", b"desc", b"src",
                b"url", b"urlname", b"sym", b"type", b"fix")
 _AFTER_HDOP = (b"vdop", b"pdop", b"ageofdgpsdata", b"dgpsid")
+_FIELDS = ("lat", "lon", "ele", "time", "sat", "hdop")
 
 
 def _plain(names) -> bytes:
     return rb"(?:(?:" + rb"|".join(rb"<%s>" % n + _TEXT + rb"</%s>" % n for n in names) + rb")" + _WS + rb")*"
 
 
-def _attr(name: bytes, quote_group: int) -> bytes:
-    return name + _WS + rb"=" + _WS + rb"([\"'])" + _NUM + rb"\%d" % quote_group
+class _Pattern:
+    """A compiled point pattern and where each field sits in its findall tuples."""
+
+    def __init__(self, shape: tuple | None):
+        self.shape = shape
+        parts: list[bytes] = []
+        self.groups: dict[str, list[int]] = {k: [] for k in _FIELDS}
+        count = 0
+
+        def grp(regex: bytes, name: str | None) -> bytes:
+            nonlocal count
+            count += 1
+            if name:
+                self.groups[name].append(count - 1)
+            return regex
+
+        def attr(name: str, quote: bytes | None) -> bytes:
+            if quote is None:  # either quote, matched by a back reference
+                q = grp(rb"([\"'])", None)
+                qn = count
+                return name.encode() + _WS + b"=" + _WS + q + grp(_NUM, name) + rb"\%d" % qn
+            return name.encode() + _WS + b"=" + _WS + quote + grp(_NUM, name) + quote
+
+        def opt(regex: bytes, present: bool | None) -> bytes:
+            if present is None:
+                return rb"(?:" + regex + rb")?"
+            return regex if present else b""
+
+        if shape is None:  # general: anything canonical
+            order, quote, ele, tim, sat, hdop = None, None, None, None, None, None
+        else:
+            order, quote, ele, tim, sat, hdop = shape
+        head = rb"<trkpt" + _WS1
+        if order is None:
+            head += rb"(?:" + attr("lat", quote) + _WS1 + attr("lon", quote) + rb"|"
+            head += attr("lon", quote) + _WS1 + attr("lat", quote) + rb")"
+        else:
+            a, b = order
+            head += attr(a, quote) + _WS1 + attr(b, quote)
+        parts.append(head + _WS)
+        body = b""
+        if ele is None or ele:
+            body += opt(rb"<ele>" + grp(_NUM, "ele") + rb"</ele>" + _WS, ele)
+        if tim is None or tim:
+            body += opt(grp(_TIME, "time"), tim)
+        if shape is None:
+            body += _plain(_BEFORE_SAT)
+        if sat is None or sat:
+            body += opt(rb"<sat>" + grp(_NUM, "sat") + rb"</sat>" + _WS, sat)
+        if hdop is None or hdop:
+            body += opt(rb"<hdop>" + grp(_NUM, "hdop") + rb"</hdop>" + _WS, hdop)
+        if shape is None:
+            body += _plain(_AFTER_HDOP)
+            parts.append(rb"(?:/>|>" + _WS + body + rb"</trkpt>)" + _WS)
+        elif not any((ele, tim, sat, hdop)):
+            parts.append(rb"(?:/>|>" + _WS + rb"</trkpt>)" + _WS)
+        else:
+            parts.append(rb">" + _WS + body + rb"</trkpt>" + _WS)
+        self.regex = re.compile(b"".join(parts))
 
 
-#: Groups: 1 q, 2 lat, 3 q, 4 lon | 5 q, 6 lon, 7 q, 8 lat; 9 ele; 10-12 time; 13 sat; 14 hdop.
-TRKPT_RE = re.compile(
-    rb"<trkpt[ \t\r\n]+(?:"
-    + _attr(b"lat", 1) + rb"[ \t\r\n]+" + _attr(b"lon", 3)
-    + rb"|"
-    + _attr(b"lon", 5) + rb"[ \t\r\n]+" + _attr(b"lat", 7)
-    + rb")" + _WS
-    + rb"(?:/>|>" + _WS
-    + rb"(?:<ele>" + _NUM + rb"</ele>" + _WS + rb")?"
-    + rb"(?:<time>" + _WS + _TIME + _WS + rb"</time>" + _WS + rb")?"
-    + _plain(_BEFORE_SAT)
-    + rb"(?:<sat>" + _NUM + rb"</sat>" + _WS + rb")?"
-    + rb"(?:<hdop>" + _NUM + rb"</hdop>" + _WS + rb")?"
-    + _plain(_AFTER_HDOP)
-    + rb"</trkpt>)" + _WS
-)
+#: Matches every canonical track point; used to learn the file's shape and as the fallback.
+GENERAL = _Pattern(None)
+TRKPT_RE = GENERAL.regex
+#: Given that every ``<trkpt`` starts a canonical point, this finds the same spans, cheaply.
+_SPAN_RE = re.compile(rb"<trkpt[^>/]*(?:/>|>[^<]*(?:<(?!/trkpt>)[^<]*)*</trkpt>)[ \t\r\n]*")
+
+
+@functools.lru_cache(maxsize=16)
+def _shaped(shape: tuple) -> _Pattern:
+    return _Pattern(shape)
+
+
+def _shape_of(m: re.Match) -> tuple:
+    """The shape of one general match: attribute order, quote, which children it has."""
+    g = GENERAL.groups
+    lat_first = m.group(g["lat"][0] + 1) is not None
+    # a quote group sits just before the first attribute's value (group number = index + 1)
+    quote = m.group(g["lat"][0]) if lat_first else m.group(g["lon"][1])
+    order = ("lat", "lon") if lat_first else ("lon", "lat")
+    has = [bool(m.group(g[k][0] + 1)) for k in ("ele", "time", "sat", "hdop")]
+    return (order, quote, *has)
+
 
 _RUN_RE = re.compile(rb"\x01+")
 _PLACEHOLDER = "tf_bulk_run_"
@@ -82,17 +150,22 @@ def read_fast(data: bytes) -> Fixes | None:
     """Read the track points of ``data`` in bulk, or return ``None`` to ask for the safe path."""
     if not _encoding_ok(data) or b"\x01" in data:
         return None
-    skeleton, n = TRKPT_RE.subn(b"\x01", data)
-    if n == 0 or n != data.count(b"<trkpt"):
+    n = data.count(b"<trkpt")
+    first = data.find(b"<trkpt")
+    m = GENERAL.regex.match(data, first) if n else None
+    if m is None:
         return None
-    found = _segments_from_skeleton(skeleton)
+    cols = _bulk_columns(data, _shaped(_shape_of(m)), n)  # all points shaped like the first?
+    if cols is None:
+        cols = _bulk_columns(data, GENERAL, n)
+    if cols is None:
+        return None
+    # Now every "<trkpt" starts a canonical point, so the cheap span pattern finds the same spans.
+    skeleton, n_spans = _SPAN_RE.subn(b"\x01", data)
+    found = _segments_from_skeleton(skeleton) if n_spans == n else None
     if found is None or sum(found[1]) != n:
         return None
     fmt, seg_sizes = found
-    del skeleton
-    cols = _bulk_columns(data)
-    if cols is None or len(cols["lat"]) != n:
-        return None
     lat, lon = cols["lat"], cols["lon"]
     if not ((np.abs(lat) <= 90.0).all() and (np.abs(lon) <= 180.0).all()):
         return None
@@ -175,47 +248,68 @@ def _segments_from_skeleton(skeleton: bytes) -> tuple[str, list[int]] | None:
     return fmt, sizes
 
 
-def _bulk_columns(data: bytes) -> dict | None:
-    """Run the point pattern over ``data`` chunk by chunk and convert the captures with numpy."""
+def _bulk_columns(data: bytes, pat: _Pattern, n: int) -> dict | None:
+    """Run ``pat`` over ``data`` chunk by chunk and convert the captures with numpy.
+
+    ``None`` unless exactly ``n`` points match and every captured value converts.
+    """
     parts: dict[str, list] = {k: [] for k in ("lat", "lon", "ele", "time", "sat", "hdop")}
     naive = 0
     has_sat = has_hdop = False
+    count = 0
     pos, size = 0, len(data)
+    g = pat.groups
     while pos < size:
         end = data.find(b"<trkpt", pos + CHUNK_BYTES)
         end = size if end < 0 else end
-        rows = TRKPT_RE.findall(data, pos, end)
+        rows = pat.regex.findall(data, pos, end)
         pos = end
         if not rows:
             continue
+        count += len(rows)
         c = list(zip(*rows))
-        lat = np.array([a or b for a, b in zip(c[1], c[7])])
-        lon = np.array([a or b for a, b in zip(c[3], c[5])])
-        parts["lat"].append(lat.astype(np.float64))
-        parts["lon"].append(lon.astype(np.float64))
-        for key, g in (("ele", 8), ("sat", 12), ("hdop", 13)):
-            parts[key].append(_optional_numbers(c[g]))
-        has_sat = has_sat or any(c[12])
-        has_hdop = has_hdop or any(c[13])
         try:
-            parts["time"].append(gpx_times_to_epoch(c[9], c[10], c[11]))
-        except TimeError:
+            for key in ("lat", "lon"):
+                idx = g[key]
+                col = c[idx[0]] if len(idx) == 1 else [a or b for a, b in zip(c[idx[0]], c[idx[1]])]
+                parts[key].append(np.fromiter(map(float, col), np.float64, len(col)))
+            for key in ("ele", "sat", "hdop"):
+                col = c[g[key][0]] if g[key] else None
+                parts[key].append(_optional_numbers(col, len(rows)))
+            if g["time"]:
+                stamps = np.array(c[g["time"][0]], dtype="S35")
+                parts["time"].append(gpx_times_to_epoch(stamps))
+                naive += _count_naive(stamps)
+            else:
+                parts["time"].append(np.full(len(rows), np.nan))
+        except (ValueError, TimeError):  # a number or time the safe path must report
             return None
-        off = np.array(c[11])
-        naive += int(np.count_nonzero((np.array(c[9]) != b"") & (off == b"")))
-    if not parts["lat"]:
+        has_sat = has_sat or bool(g["sat"]) and any(c[g["sat"][0]])
+        has_hdop = has_hdop or bool(g["hdop"]) and any(c[g["hdop"][0]])
+    if count != n:
         return None
     out = {k: np.concatenate(v) for k, v in parts.items()}
     out.update(naive=naive, has_sat=has_sat, has_hdop=has_hdop)
     return out
 
 
-def _optional_numbers(strings) -> np.ndarray:
-    arr = np.array(strings)
-    out = np.full(len(arr), np.nan)
-    have = arr != b""
-    if have.all():
-        return arr.astype(np.float64)
-    if have.any():
-        out[have] = arr[have].astype(np.float64)
-    return out
+def _optional_numbers(strings, n: int) -> np.ndarray:
+    """Floats from captured strings, NaN where the capture is empty (element absent)."""
+    if strings is None:
+        return np.full(n, np.nan)
+    if all(strings):
+        return np.fromiter(map(float, strings), np.float64, n)
+    return np.fromiter((float(v) if v else np.nan for v in strings), np.float64, n)
+
+
+def _count_naive(stamps: np.ndarray) -> int:
+    """Number of non-empty stamps without 'Z' or a numeric offset at the end."""
+    if not len(stamps):
+        return 0
+    u = stamps.view(np.uint8).reshape(len(stamps), -1)
+    length = (u != 0).sum(axis=1)
+    rows = np.arange(len(u))
+    last = u[rows, np.maximum(length - 1, 0)]
+    sign = u[rows, np.maximum(length - 6, 0)]
+    offset = (last == ord("Z")) | ((length >= 25) & ((sign == ord("+")) | (sign == ord("-"))))
+    return int(np.count_nonzero((length > 0) & ~offset))

@@ -54,9 +54,7 @@ TIME_RE = re.compile(
 class Fixes:
     """Points read from a GPX file, before they become a Track.
 
-    ``time_base`` holds ``b"YYYY-MM-DDThh:mm:ss"`` (local clock of the offset) or ``b""``;
-    ``time_frac`` up to 9 fraction digits; ``time_off`` ``b""``, ``b"Z"`` or ``b"+hh:mm"``.
-    Converted by ``gpx_times_to_epoch``.
+    Arrays in Track units (degrees, metres, UTC epoch seconds), NaN where a point lacks a value.
     """
 
     fmt: str
@@ -82,18 +80,19 @@ class TimeError(ValueError):
         self.text = text
 
 
-def gpx_times_to_epoch(base, frac, off) -> np.ndarray:
-    """Convert split ISO 8601 time stamps to seconds since the UNIX epoch (UTC), vectorised.
+_DIGIT_COLS = np.array([0, 1, 2, 3, 5, 6, 8, 9, 11, 12, 14, 15, 17, 18])
+_DAYS_IN_MONTH = np.array([0, 31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31])
+
+
+def gpx_times_to_epoch(stamps) -> np.ndarray:
+    """Convert ISO 8601 time stamps to seconds since the UNIX epoch (UTC), vectorised.
 
     Parameters
     ----------
-    base
-        Sequence of ``b"YYYY-MM-DDThh:mm:ss"`` (``b""`` for a point without time -> NaN).
-    frac
-        Sequence of fraction-of-second digit strings, at most 9 digits (``b""`` for none).
-    off
-        Sequence of UTC offsets ``b""`` / ``b"Z"`` (UTC) or ``b"+hh:mm"`` / ``b"-hh:mm"``.
-        A time without offset is read as UTC (common practice for GPS logs).
+    stamps
+        Sequence of bytes ``b"YYYY-MM-DDThh:mm:ss[.f{1,9}][Z|+hh:mm|-hh:mm]"`` (xsd:dateTime),
+        or ``b""`` for a point without time (-> NaN). A stamp without offset is read as UTC
+        (common practice for GPS logs).
 
     Returns
     -------
@@ -102,52 +101,75 @@ def gpx_times_to_epoch(base, frac, off) -> np.ndarray:
     Raises
     ------
     TimeError
-        Naming the first stamp with an impossible date, clock time or offset.
+        Naming the first stamp that is malformed or names an impossible date, clock time
+        (``ss`` = 60 included) or offset.
+
+    Notes
+    -----
+    Days from the civil date by the proleptic Gregorian algorithm of H. Hinnant,
+    "chrono-Compatible Low-Level Date Algorithms" (days_from_civil), in integer numpy arithmetic.
     """
-    n = len(base)
+    n = len(stamps)
     out = np.full(n, np.nan)
     if n == 0:
         return out
-    b = np.asarray(base, dtype="S19")
-    has = b != b""
+    a = np.array(stamps, dtype="S35")
+    has = a != b""
     if not has.any():
         return out
-    b = b[has]
-    try:
-        sec = b.astype("datetime64[s]").astype(np.int64)
-    except ValueError:
-        raise _first_bad_time(base) from None
-    f = np.asarray(frac, dtype="S9")[has]
-    digits = f.view(np.uint8).reshape(len(f), 9).astype(np.int64)
-    digits = np.where(digits == 0, 0, digits - 48)
-    ns = digits @ (10 ** np.arange(8, -1, -1, dtype=np.int64))
-    o = np.asarray(off, dtype="S6")[has]
-    ob = o.view(np.uint8).reshape(len(o), 6).astype(np.int64)
-    signed = (ob[:, 0] == ord("+")) | (ob[:, 0] == ord("-"))
-    hh = np.where(signed, (ob[:, 1] - 48) * 10 + (ob[:, 2] - 48), 0)
-    mm = np.where(signed, (ob[:, 4] - 48) * 10 + (ob[:, 5] - 48), 0)
-    bad = (hh > 23) | (mm > 59)
-    if bad.any():
-        idx = np.flatnonzero(has)[np.argmax(bad)]
-        raise TimeError(int(idx), f"{base[idx]!r}{off[idx]!r}")
-    sign = np.where(ob[:, 0] == ord("-"), -1, 1)
-    utc = sec - sign * (hh * 3600 + mm * 60)
-    out[has] = utc.astype(np.float64) + ns.astype(np.float64) * 1e-9
+    idx = np.flatnonzero(has)
+    u = a[has].view(np.uint8).reshape(-1, 35).astype(np.int16)
+    # fraction: '.' then 1-9 digits
+    fd = u[:, 20:29] - 48
+    is_digit = (fd >= 0) & (fd <= 9)
+    dot = u[:, 19] == 46
+    ndig = np.where(dot, is_digit.cumprod(axis=1).sum(axis=1), 0)
+    frac_ok = ~dot | (ndig >= 1)
+    ns = (np.where(np.arange(9) < ndig[:, None], fd, 0).astype(np.int64)) @ (10 ** np.arange(8, -1, -1, dtype=np.int64))
+    # offset: starts after the fraction; '', 'Z' or sign hh ':' mm, then nothing
+    start = np.where(dot, 20 + ndig, 19)
+    o = np.take_along_axis(u, np.minimum(start[:, None] + np.arange(7), 34), axis=1)
+    o[start[:, None] + np.arange(7) > 34] = 0
+    signed = (o[:, 0] == 43) | (o[:, 0] == 45)
+    od = o[:, [1, 2, 4, 5]] - 48
+    hh = od[:, 0] * 10 + od[:, 1]
+    mm = od[:, 2] * 10 + od[:, 3]
+    off_ok = signed & ((od >= 0) & (od <= 9)).all(axis=1) & (o[:, 3] == 58) & (o[:, 6] == 0)
+    off_ok &= (hh <= 23) & (mm <= 59)
+    utc_like = ((o[:, 0] == 0) | (o[:, 0] == 90)) & (o[:, 1:] == 0).all(axis=1)  # '' or 'Z'
+    ok = frac_ok & np.where(signed, off_ok, utc_like)
+    u = u[:, :19].astype(np.int64)
+    d = u[:, _DIGIT_COLS] - 48
+    ok &= ((d >= 0) & (d <= 9)).all(axis=1)
+    ok &= (u[:, 4] == 45) & (u[:, 7] == 45) & (u[:, 10] == 84) & (u[:, 13] == 58) & (u[:, 16] == 58)
+    year = d[:, 0] * 1000 + d[:, 1] * 100 + d[:, 2] * 10 + d[:, 3]
+    month = d[:, 4] * 10 + d[:, 5]
+    day = d[:, 6] * 10 + d[:, 7]
+    hour, minute, second = (d[:, 8] * 10 + d[:, 9], d[:, 10] * 10 + d[:, 11], d[:, 12] * 10 + d[:, 13])
+    month_ok = (month >= 1) & (month <= 12)
+    leap = (year % 4 == 0) & ((year % 100 != 0) | (year % 400 == 0))
+    dim = _DAYS_IN_MONTH[np.where(month_ok, month, 0)] + ((month == 2) & leap)
+    ok &= month_ok & (day >= 1) & (day <= dim) & (hour <= 23) & (minute <= 59) & (second <= 59)
+    if not ok.all():
+        i = int(idx[np.argmin(ok)])
+        raise TimeError(i, bytes(stamps[i]).decode("ascii", "replace"))
+    y = year - (month <= 2)
+    era = np.floor_divide(y, 400)
+    yoe = y - era * 400
+    doy = (153 * (month + np.where(month > 2, -3, 9)) + 2) // 5 + day - 1
+    doe = yoe * 365 + yoe // 4 - yoe // 100 + doy
+    days = era * 146097 + doe - 719468
+    sign = np.where(o[:, 0] == 45, -1, 1)
+    sec = days * 86400 + hour * 3600 + minute * 60 + second - np.where(signed, sign * (hh * 3600 + mm * 60), 0)
+    out[idx] = sec.astype(np.float64) + ns.astype(np.float64) * 1e-9
     return out
 
 
-def _first_bad_time(base) -> TimeError:
-    for i, s in enumerate(base):
-        if s:
-            try:
-                np.datetime64(s.decode("ascii"), "s")
-            except ValueError:
-                return TimeError(i, s.decode("ascii", "replace"))
-    return TimeError(0, "?")  # pragma: no cover - numpy refused the batch but no single stamp
+def normalise_time(text: str) -> bytes | None:
+    """Rewrite one time stamp of an accepted shape as canonical xsd:dateTime bytes.
 
-
-def split_time(text: str) -> tuple[bytes, bytes, bytes] | None:
-    """Split one ISO 8601 time stamp into (base, fraction digits, offset) canonical bytes.
+    ``2024-5-1 7:03:09.5+0200`` -> ``b"2024-05-01T07:03:09.5+02:00"``; fractions are cut to
+    9 digits (nanoseconds).
 
     Returns ``None`` when ``text`` is not a time stamp of an accepted shape.
     """
@@ -156,14 +178,14 @@ def split_time(text: str) -> tuple[bytes, bytes, bytes] | None:
         return None
     y, mo, d, h, mi, s, frac, off = m.groups()
     base = b"%s-%02d-%02dT%02d:%02d:%02d" % (y.encode(), int(mo), int(d), int(h), int(mi), int(s))
-    fr = (frac or "")[:9].encode()
+    fr = b"." + frac[:9].encode() if frac else b""
     if not off or off == "Z":
         o = off.encode() if off else b""
     else:
         sign = b"-" if off[0] in "-\u2212" else b"+"
         digits = off[1:].replace(":", "")
         o = sign + (digits[:2] + ":" + (digits[2:4] or "00")).encode()
-    return base, fr, o
+    return base + fr + o
 
 
 def parse_number(text: str | None) -> float | None:
@@ -285,7 +307,7 @@ def _point(path: str, el, kind: str, number: int, ns: str, seg: int) -> tuple:
         if text is None or not text.strip():
             out.append(None)
         elif name == "time":
-            parts = split_time(text)
+            parts = normalise_time(text)
             if parts is None:
                 raise InputError(path, f"time {text.strip()[:40]!r} is not an ISO 8601 date-time", where)
             out.append(parts)
@@ -302,16 +324,15 @@ def _assemble(path: str, fmt: str, pts: list, kind: str) -> Fixes:
     if n == 0:
         return Fixes(fmt, *(np.empty(0) for _ in range(4)), np.empty(0, np.int32))
     lat, lon, ele, tm, hdop, sat, seg, line, number = zip(*pts)
-    tparts = [t or (b"", b"", b"") for t in tm]
-    base, frac, off = zip(*tparts)
+    tparts = [t or b"" for t in tm]
     try:
-        time_s = gpx_times_to_epoch(base, frac, off)
+        time_s = gpx_times_to_epoch(tparts)
     except TimeError as exc:
         raise InputError(
             path, f"time {exc.text!r} is not a valid date-time", f"line {line[exc.index]}, {kind} {exc.index + 1}"
         ) from None
     notes = []
-    naive = sum(1 for t in tparts if t[0] and not t[2])
+    naive = sum(1 for t in tparts if t and t[-1:] != b"Z" and t[-6:-5] not in (b"+", b"-"))
     if naive:
         notes.append(f"{naive} time stamps had no UTC offset; read as UTC")
 
