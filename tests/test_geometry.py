@@ -1,0 +1,127 @@
+"""Frenet geometry and the smoother, against closed forms and sympy."""
+
+import numpy as np
+import pytest
+import sympy as sp
+
+from survey import synthetic as S
+from survey.frame import LocalFrame
+from survey.geometry import frenet
+from survey.profile_build import build_profile
+from survey.stations import TORSION_LOW_CURVATURE
+
+FRAME = LocalFrame.enu(46.5, 7.6, 800.0)  # invented site
+
+
+def profile_of(fixes, **kw):
+    track = S.fixes_to_track(fixes, FRAME.inverse)
+    e, n, u = FRAME.forward(track.lat_deg, track.lon_deg, track.height_m)
+    return build_profile(track, np.column_stack([e, n, u]), FRAME, **kw)
+
+
+def test_frenet_of_sympy_twisted_cubic_matches_symbolic_kappa_and_tau():
+    # Independent oracle: sympy's exact kappa, tau of r(t) = (t, t^2, t^3) (Frenet-Serret formulas,
+    # REFERENCES.md), compared with survey.geometry.frenet on the exact derivatives.
+    t = sp.symbols("t", real=True)
+    r = sp.Matrix([t, t**2, t**3])
+    d1, d2, d3 = r.diff(t), r.diff(t, 2), r.diff(t, 3)
+    c = d1.cross(d2)
+    kappa = sp.lambdify(t, c.norm() / d1.norm() ** 3)
+    tau = sp.lambdify(t, c.dot(d3) / c.dot(c))
+    ts = np.linspace(-1.5, 1.5, 13)
+    v = np.column_stack([np.ones_like(ts), 2 * ts, 3 * ts**2])
+    a = np.column_stack([np.zeros_like(ts), 2 + 0 * ts, 6 * ts])
+    j = np.column_stack([0 * ts, 0 * ts, 6 + 0 * ts])
+    g = frenet(v, a, j)
+    np.testing.assert_allclose(g["curvature_per_m"], [kappa(x) for x in ts], rtol=1e-12)
+    np.testing.assert_allclose(g["torsion_per_m"], [tau(x) for x in ts], rtol=1e-12)
+    np.testing.assert_allclose(np.einsum("ij,ij->i", np.cross(g["tangent"], g["normal"]), g["binormal"]), 1.0)
+
+
+def test_rtk_helix_curvature_and_torsion_match_closed_form():
+    # Helix: kappa = a/(a^2+c^2), tau = c/(a^2+c^2) (do Carmo 1976; REFERENCES.md). Issue targets:
+    # RTK kappa within 0.5 %, tau within 2 % (median).
+    a, c = 50.0, 5.0
+    traj = S.helix(a, c, speed_mps=10.0, rate_hz=10.0, turns=2.0)
+    p = profile_of(S.add_gnss_error(traj, "rtk", np.random.default_rng(11)))
+    core = (p.chainage_m > 50) & (p.chainage_m < traj.length_m - 50)
+    k_true, t_true = a / (a * a + c * c), c / (a * a + c * c)
+    assert np.median(np.abs(p.curvature_per_m[core] / k_true - 1)) < 0.005
+    assert np.nanmedian(np.abs(p.torsion_per_m[core] / t_true - 1)) < 0.02
+
+
+@pytest.mark.xfail(strict=True, reason="known defect: p95 |tau| is ~15 % of kappa on dual-frequency heights; "
+                   "target 5 % not met yet")
+def test_plane_curve_has_near_zero_torsion_despite_height_noise():
+    # Textbook fact: a plane curve has tau = 0. Issue target: 95th percentile |tau| <= 5 % of the
+    # typical kappa.
+    traj = S.plane_loop(tilt_deg=6.0)
+    p = profile_of(S.add_gnss_error(traj, "dual", np.random.default_rng(5)))
+    tau = p.torsion_per_m[np.isfinite(p.torsion_per_m)]
+    assert len(tau) > 0.5 * len(p)
+    assert np.percentile(np.abs(tau), 95) <= 0.05 * np.median(p.curvature_per_m)
+
+
+def test_clothoid_curvature_grows_linearly_with_chainage():
+    # Clothoid: kappa(s) = s / A^2 with A^2 = R L (REFERENCES.md, ISO 19107 clothoid).
+    R, L = 200.0, 120.0
+    curve = S.alignment_curve([("tangent", 100, 0), ("spiral", L, 1 / R), ("arc", 150, 1 / R)])
+    traj = S.sample_path(curve, speed_mps=15.0, rate_hz=10.0)
+    p = profile_of(S.add_gnss_error(traj, "rtk", np.random.default_rng(3)))
+    inner = (p.chainage_m > 115) & (p.chainage_m < 205)
+    slope, intercept = np.polyfit(p.chainage_m[inner], p.curvature_per_m[inner], 1)
+    assert slope == pytest.approx(1 / (R * L), rel=0.03)
+    assert intercept == pytest.approx(-100 / (R * L), abs=0.03 * 100 / (R * L) + 1e-4)
+
+
+def test_lateral_acceleration_is_v_squared_over_r_in_steady_turning():
+    # Physics: a = v^2 / R for steady circular motion (REFERENCES.md).
+    R, v = 60.0, 12.0
+    traj = S.helix(R, 0.0, speed_mps=v, rate_hz=10.0, turns=1.5)
+    p = profile_of(S.add_gnss_error(traj, "rtk", np.random.default_rng(4)))
+    core = (p.chainage_m > 60) & (p.chainage_m < traj.length_m - 60)
+    assert np.median(p.lateral_accel_mps2[core]) == pytest.approx(v * v / R, rel=0.01)
+    assert np.median(p.speed_mps[core]) == pytest.approx(v, rel=0.005)
+
+
+def test_straight_gives_nan_torsion_with_low_curvature_reason_never_a_huge_number():
+    # Torsion is undefined where r' x r'' = 0 (REFERENCES.md): it must be empty, not huge.
+    curve = S.alignment_curve([("tangent", 600.0, 0.0)], grades=[(600.0, 0.03, 0.03)])
+    traj = S.sample_path(curve, speed_mps=20.0, rate_hz=5.0)
+    p = profile_of(S.add_gnss_error(traj, "dual", np.random.default_rng(8)))
+    low = p.torsion_reason == TORSION_LOW_CURVATURE
+    assert low.mean() > 0.9
+    assert np.all(np.isnan(p.torsion_per_m[low]))
+    assert np.nanmax(np.abs(p.torsion_per_m), initial=0.0) < 0.1
+
+
+def test_curvature_band_covers_the_truth_at_about_its_stated_rate():
+    # A calibrated 1-sigma band covers the truth ~68 % of the time (Gaussian property). White
+    # receiver noise with its true accuracy: the model's own assumptions.
+    a, c = 40.0, 6.0
+    k_true, t_true = a / (a * a + c * c), c / (a * a + c * c)
+    traj = S.helix(a, c, speed_mps=8.0, rate_hz=5.0, turns=1.0)
+    hits_k = []
+    for seed in range(8):
+        f = S.add_gnss_error(traj, "dual", np.random.default_rng(100 + seed), wander_m=0.0, white_m=0.15)
+        p = profile_of(f, seed=seed)
+        core = (p.chainage_m > 40) & (p.chainage_m < traj.length_m - 40)
+        sel = np.flatnonzero(core)[:: 25]  # thin out: neighbouring stations are correlated
+        hits_k.append(np.abs(p.curvature_per_m[sel] - k_true) <= p.curvature_sd_per_m[sel])
+    cover_k = np.mean(np.concatenate(hits_k))
+    assert 0.45 <= cover_k <= 0.92
+
+
+@pytest.mark.xfail(strict=True, reason="known defect: the torsion band is too wide (covers ~96 %)")
+def test_torsion_band_covers_the_truth_at_about_its_stated_rate():
+    # Same set-up as above, for torsion.
+    a, c = 40.0, 6.0
+    t_true = c / (a * a + c * c)
+    traj = S.helix(a, c, speed_mps=8.0, rate_hz=5.0, turns=1.0)
+    hits = []
+    for seed in range(8):
+        f = S.add_gnss_error(traj, "dual", np.random.default_rng(100 + seed), wander_m=0.0, white_m=0.15)
+        p = profile_of(f, seed=seed)
+        sel = np.flatnonzero((p.chainage_m > 40) & (p.chainage_m < traj.length_m - 40))[::25]
+        hits.append(np.abs(p.torsion_per_m[sel] - t_true) <= p.torsion_sd_per_m[sel])
+    assert 0.45 <= np.mean(np.concatenate(hits)) <= 0.92
