@@ -11,9 +11,8 @@ Frames and signs
   ``torsion_reason``.
 * ``plan_curvature_per_m`` is the signed curvature of the horizontal projection: positive for a
   left-hand (anticlockwise seen from above) bend (common practice for plan geometry).
-* ``vertical_curvature_per_m`` is d(grade)/d(horizontal distance), grade as a fraction (road
-  vertical-curve practice): positive on a
-  sag (crest negative).
+* ``vertical_curvature_per_m`` is d(grade)/d(horizontal distance), grade as a fraction
+  (road vertical-curve practice): positive on a sag, negative on a crest.
 * ``grade_pct`` is 100 * d(up)/d(plan chainage).
 * ``lateral_accel_mps2`` = speed^2 * kappa where time exists, else NaN.
 """
