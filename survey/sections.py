@@ -249,6 +249,23 @@ def merge_and_filter(
 # Section description
 
 
+def value_at(chainage_m: np.ndarray, values: np.ndarray, where_m: float) -> float:
+    """``values`` linearly interpolated at chainage ``where_m`` between the two neighbouring
+    stations (NaN outside the stations or when a neighbour is NaN). O(log n): no full-array work,
+    so it is cheap to call once per section end."""
+    c = chainage_m
+    n = len(c)
+    if n == 0 or not math.isfinite(where_m) or where_m < c[0] or where_m > c[-1]:
+        return math.nan
+    j = int(np.searchsorted(c, where_m, side="left"))
+    if j < n and c[j] == where_m:
+        return float(values[j])
+    c0, c1 = float(c[j - 1]), float(c[j])
+    v0, v1 = float(values[j - 1]), float(values[j])
+    w = (where_m - c0) / (c1 - c0)
+    return v0 + w * (v1 - v0)
+
+
 def _nan_extreme(values: np.ndarray, chain: np.ndarray, largest: bool) -> tuple[float, float]:
     """(value, chainage) of the min (or max) of the finite-or-inf values; (nan, nan) if none."""
     ok = ~np.isnan(values)
@@ -286,12 +303,7 @@ def describe(
     c1 = float(c[i1]) if end_chainage_m is None else float(end_chainage_m)
 
     def at(arr: np.ndarray, i: int, where: float | None) -> float:
-        if where is None:
-            return float(arr[i])
-        ok = np.isfinite(arr) & np.isfinite(c)
-        if not ok.any() or where < c[ok][0] or where > c[ok][-1]:
-            return math.nan
-        return float(np.interp(where, c[ok], arr[ok]))
+        return float(arr[i]) if where is None else value_at(c, arr, where)
 
     radius = profile.radius_m[sl].astype(float)
     r_min, r_at = _nan_extreme(radius, ch, largest=False)

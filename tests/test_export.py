@@ -183,6 +183,21 @@ def test_xlsx_profile_sheet_holds_every_station(tmp_path, findings):
     assert rows[1 + 50][rad] is None  # a straight: infinite radius -> empty cell
 
 
+def test_xlsx_profile_longer_than_a_sheet_is_thinned_and_says_so(tmp_path, findings, monkeypatch):
+    # Excel's sheet limit is 1,048,576 rows; shrink it to 101 to exercise the rule cheaply.
+    prof, secs, run = findings
+    monkeypatch.setattr("survey.export.xlsx_out.MAX_SHEET_ROWS", 101)
+    out = tmp_path / "f.xlsx"
+    write_findings(out, secs, prof, run)
+    wb = openpyxl.load_workbook(out, read_only=True)
+    rows = list(wb[SHEET_PROFILE].iter_rows(values_only=True))
+    stride = math.ceil(len(prof) / 100)  # 701 stations -> every 8th
+    assert len(rows) - 1 == math.ceil(len(prof) / stride) <= 100
+    assert [r[0] for r in rows[1:3]] == [0.0, float(stride)]
+    settings = {r[0]: (r[1] if len(r) > 1 else None) for r in wb[SHEET_RUN].iter_rows(values_only=True)}
+    assert settings["profile_sheet"].startswith(f"every {stride}th station")
+
+
 def test_xlsx_notes_come_back_as_text_not_formulas(tmp_path, findings):
     prof, secs, run = findings
     out = tmp_path / "f.xlsx"
@@ -278,6 +293,11 @@ def test_gpx_has_one_track_per_section_read_back_by_gpxpy(tmp_path, findings):
     write_findings(out, secs, prof, run)
     text = out.read_text("utf-8")
     assert 'xmlns="http://www.topografix.com/GPX/1/1"' in text  # GPX 1.1 namespace
+    assert text.count("xmlns") == 1  # declared once (gpxpy reads only a single declaration)
+    from lxml import etree
+
+    tags = {el.tag for el in etree.fromstring(out.read_bytes()).iter()}
+    assert all(t.startswith("{http://www.topografix.com/GPX/1/1}") for t in tags)
     gpx = gpxpy.parse(text)
     assert [t.name for t in gpx.tracks] == [f"{s.id} {s.kind}" for s in secs]
     sharp = next(t for t in gpx.tracks if t.name == "S1 sharp")

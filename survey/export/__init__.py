@@ -31,7 +31,7 @@ from ..stations import Profile
 from .cells import FORMULA_PREFIXES, neutralise
 from .csv_out import write_sections_csv
 from .geojson_out import feature_collection, write_sections_geojson
-from .gpx_out import build_gpx, write_sections_gpx
+from .gpx_out import write_sections_gpx
 from .table import SECTION_TABLE_COLUMNS, RunInfo, profile_rows, run_settings_rows, section_rows
 from .xlsx_out import SHEET_PROFILE, SHEET_RUN, SHEET_SECTIONS, write_findings_xlsx
 
@@ -44,7 +44,6 @@ __all__ = [
     "SHEET_RUN",
     "SHEET_SECTIONS",
     "STDOUT",
-    "build_gpx",
     "export_format",
     "feature_collection",
     "neutralise",
@@ -101,14 +100,15 @@ def write_findings(
         if fmt == "xlsx":
             with atomic_open(target, "wb") as fh:
                 write_findings_xlsx(fh, sections, profile, run)
+        elif fmt == "gpx":
+            with atomic_open(target, "wb") as fh:
+                write_sections_gpx(fh, sections, profile, run)
         else:
             with atomic_open(target, "w", encoding="utf-8", newline="") as fh:
                 if fmt == "csv":
                     write_sections_csv(fh, sections)
-                elif fmt == "geojson":
-                    write_sections_geojson(fh, sections, profile, run)
                 else:
-                    write_sections_gpx(fh, sections, profile, run)
+                    write_sections_geojson(fh, sections, profile, run)
     except OSError as exc:
         raise InputError(str(path), f"cannot write: {exc.strerror or exc}") from None
     return fmt

@@ -1,25 +1,28 @@
-"""Sections as GPX 1.1 (written with gpxpy): one <trk> per section, its points the section's
-positions (ends plus stations between; see ``geojson_out.section_positions``).
+"""Sections as GPX 1.1 (schema http://www.topografix.com/GPX/1/1), streamed with lxml.
 
-Each track's name is "<id> <kind>", its type the kind, its description the section summary and
-note (with the caution for design sections). Elevations are the profile heights, whose reference
-(``Profile.height_ref``) is stated in the file's metadata description.
+One <trk> per section; its points are the section's positions (ends plus the stations between;
+see ``geojson_out.section_positions``). Each track's <name> is "<id> <kind>", its <type> the
+kind, its <desc> a summary and the note (plus the caution for design sections). <ele> is the
+profile height, whose reference (``Profile.height_ref``) the metadata <desc> states; <time> is
+UTC. Coordinates keep full float precision (shortest round-trip repr).
 """
 
 from __future__ import annotations
 
 import math
-from datetime import datetime, timezone
 from typing import IO, Sequence
 
-import gpxpy.gpx
 import numpy as np
+from lxml import etree
 
 from ..sections import Section
 from ..stations import Profile
 from .cells import xml_safe
 from .geojson_out import section_positions
 from .table import RunInfo
+
+GPX_NS = "http://www.topografix.com/GPX/1/1"
+_Q = "{" + GPX_NS + "}"
 
 
 def _describe(sec: Section) -> str:
@@ -38,38 +41,48 @@ def _describe(sec: Section) -> str:
     return xml_safe(text)
 
 
-def build_gpx(sections: Sequence[Section], profile: Profile, run: RunInfo) -> gpxpy.gpx.GPX:
-    gpx = gpxpy.gpx.GPX()
-    gpx.creator = f"trackframe {run.tool_version}"
-    gpx.name = xml_safe(f"trackframe sections of {run.input_path}")
-    gpx.description = xml_safe(
-        f"input sha256 {run.input_sha256}; frame {run.frame or profile.frame}; "
-        f"elevations: {profile.height_ref} heights"
-    )
-    for sec in sections:
-        trk = gpxpy.gpx.GPXTrack(name=xml_safe(f"{sec.id} {sec.kind}"), description=_describe(sec))
-        trk.type = sec.kind
-        seg = gpxpy.gpx.GPXTrackSegment()
-        ch, lat, lon, h = section_positions(profile, sec)
-        ok_t = np.isfinite(profile.time_s) & np.isfinite(profile.chainage_m)
-        if ok_t.any():
-            t = np.interp(ch, profile.chainage_m[ok_t], profile.time_s[ok_t], left=np.nan, right=np.nan)
-        else:
-            t = np.full(len(ch), np.nan)
-        for la, lo, hh, tt in zip(lat.tolist(), lon.tolist(), h.tolist(), t.tolist()):
-            seg.points.append(
-                gpxpy.gpx.GPXTrackPoint(
-                    latitude=la,
-                    longitude=lo,
-                    elevation=hh if math.isfinite(hh) else None,
-                    time=datetime.fromtimestamp(tt, timezone.utc) if math.isfinite(tt) else None,
+def _iso_times(time_s: np.ndarray) -> list[str | None]:
+    """ISO 8601 UTC with milliseconds for each time (None where not finite), vectorised."""
+    ok = np.isfinite(time_s)
+    out: list[str | None] = [None] * len(time_s)
+    if ok.any():
+        ms = np.round(time_s[ok] * 1000.0).astype("int64").astype("datetime64[ms]")
+        texts = np.datetime_as_string(ms, unit="ms")
+        for i, s in zip(np.flatnonzero(ok).tolist(), texts.tolist()):
+            out[i] = s + "Z"
+    return out
+
+
+def write_sections_gpx(fh: IO[bytes], sections: Sequence[Section], profile: Profile, run: RunInfo) -> None:
+    """Write GPX 1.1 to a binary stream."""
+    with etree.xmlfile(fh, encoding="utf-8") as xf:
+        xf.write_declaration()
+        with xf.element(_Q + "gpx", nsmap={None: GPX_NS}, version="1.1", creator=f"trackframe {run.tool_version}"):
+            xf.write("\n")
+            with xf.element(_Q + "metadata"):
+                meta_desc = (
+                    f"input sha256 {run.input_sha256}; frame {run.frame or profile.frame}; "
+                    f"elevations: {profile.height_ref} heights"
                 )
-            )
-        trk.segments.append(seg)
-        gpx.tracks.append(trk)
-    return gpx
-
-
-def write_sections_gpx(fh: IO[str], sections: Sequence[Section], profile: Profile, run: RunInfo) -> None:
-    """Write GPX 1.1 text."""
-    fh.write(build_gpx(sections, profile, run).to_xml(version="1.1"))
+                for tag, text in (("name", f"trackframe sections of {run.input_path}"), ("desc", meta_desc), ("time", run.created_utc)):
+                    with xf.element(_Q + tag):
+                        xf.write(xml_safe(text))
+            xf.write("\n")
+            for sec in sections:
+                # Streamed element by element: the namespace is declared once, on <gpx>
+                # (gpxpy, for one, only understands a single declaration).
+                with xf.element(_Q + "trk"):
+                    for tag, text in (("name", f"{sec.id} {sec.kind}"), ("desc", _describe(sec)), ("type", sec.kind)):
+                        with xf.element(_Q + tag):
+                            xf.write(xml_safe(text))
+                    _, lat, lon, h, t = section_positions(profile, sec)
+                    with xf.element(_Q + "trkseg"):
+                        for la, lo, hh, tt in zip(lat.tolist(), lon.tolist(), h.tolist(), _iso_times(t)):
+                            with xf.element(_Q + "trkpt", lat=repr(la), lon=repr(lo)):
+                                if math.isfinite(hh):
+                                    with xf.element(_Q + "ele"):
+                                        xf.write(repr(hh))
+                                if tt is not None:
+                                    with xf.element(_Q + "time"):
+                                        xf.write(tt)
+                xf.write("\n")

@@ -82,12 +82,13 @@ def section_rows(sections: Sequence[Section], guard: bool = True) -> tuple[list[
     return header, rows
 
 
-def profile_rows(profile: Profile, guard: bool = True) -> tuple[list[str], Iterator[list]]:
-    """(header, row iterator) of the profile table (``PROFILE_COLUMNS``), non-finite -> None."""
+def profile_rows(profile: Profile, guard: bool = True, stride: int = 1) -> tuple[list[str], Iterator[list]]:
+    """(header, row iterator) of the profile table (``PROFILE_COLUMNS``), non-finite -> None;
+    every ``stride``-th station."""
     header = [name for name, _ in PROFILE_COLUMNS]
     cols = []
     for name in header:
-        arr = profile.column(name)
+        arr = profile.column(name)[::stride]
         if arr.dtype.kind == "f":
             lst = arr.tolist()
             ok = np.isfinite(arr).tolist()
@@ -104,8 +105,11 @@ def profile_rows(profile: Profile, guard: bool = True) -> tuple[list[str], Itera
     return header, rows()
 
 
-def run_settings_rows(run: RunInfo, profile: Profile | None, sections: Sequence[Section], guard: bool = True) -> list[list]:
-    """(name, value) rows describing the run: tool, input and checksum, frame, thresholds."""
+def run_settings_rows(
+    run: RunInfo, profile: Profile | None, sections: Sequence[Section], guard: bool = True, extra: Sequence = ()
+) -> list[list]:
+    """(name, value) rows describing the run: tool, input and checksum, frame, thresholds, then
+    ``extra`` (name, value) pairs from the writer."""
     counts: dict[str, int] = {}
     for s in sections:
         counts[s.kind] = counts.get(s.kind, 0) + 1
@@ -129,6 +133,7 @@ def run_settings_rows(run: RunInfo, profile: Profile | None, sections: Sequence[
         rows.append([f"setting.{key}", _setting_value(value)])
     for kind, n in sorted(counts.items()):
         rows.append([f"sections.{kind}", n])
+    rows += [[k, v] for k, v in extra]
     if run.design_on or any(s.kind == KIND_DESIGN for s in sections):
         rows.append(["caution", CAUTION])
     if guard:

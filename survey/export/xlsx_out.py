@@ -18,6 +18,8 @@ from .table import RunInfo, profile_rows, run_settings_rows, section_rows
 SHEET_SECTIONS = "sections"
 SHEET_PROFILE = "profile"
 SHEET_RUN = "run settings"
+#: Rows a worksheet can hold (Excel specification limit, 2^20).
+MAX_SHEET_ROWS = 1_048_576
 
 
 def _text_safe(row: list) -> list:
@@ -51,17 +53,24 @@ def write_findings_xlsx(
     for row in rows:
         ws.append(_safe_cells(ws, row))
 
+    extra = []
     if profile is not None:
+        # A sheet holds MAX_SHEET_ROWS rows including the header; a longer profile is thinned
+        # to every k-th station and the run settings say so.
+        stride = max(1, -(-len(profile) // (MAX_SHEET_ROWS - 1)))
+        extra.append(
+            ["profile_sheet", "every station" if stride == 1 else f"every {stride}th station (sheet row limit {MAX_SHEET_ROWS})"]
+        )
         ws = wb.create_sheet(SHEET_PROFILE)
         ws.freeze_panes = "A2"
-        header, rows = profile_rows(profile, guard=True)
+        header, rows = profile_rows(profile, guard=True, stride=stride)
         ws.append(header_cells(ws, header))
         for row in rows:
             ws.append(_safe_cells(ws, row))
 
     ws = wb.create_sheet(SHEET_RUN)
     ws.append(header_cells(ws, ["setting", "value"]))
-    for row in run_settings_rows(run, profile, sections, guard=True):
+    for row in run_settings_rows(run, profile, sections, guard=True, extra=extra):
         ws.append(_safe_cells(ws, row))
     wb.save(fh)
 
