@@ -136,6 +136,7 @@ def _shape_of(m: re.Match) -> tuple:
 
 
 _RUN_RE = re.compile(rb"\x01+")
+_RUN_END_RE = re.compile(rb"</trkpt>[ \t\r\n]*(?![ \t\r\n]|<trkpt)")
 _PLACEHOLDER = "tf_bulk_run_"
 _ENCODING_RE = re.compile(
     rb"\A(?:\xef\xbb\xbf)?[ \t\r\n]*<\?xml[^>]*?encoding[ \t\r\n]*=[ \t\r\n]*[\"']([A-Za-z0-9._-]+)[\"']"
@@ -155,14 +156,19 @@ def read_fast(data: bytes) -> Fixes | None:
     m = GENERAL.regex.match(data, first) if n else None
     if m is None:
         return None
-    cols = _bulk_columns(data, _shaped(_shape_of(m)), n)  # all points shaped like the first?
+    shape = _shape_of(m)
+    cols = _bulk_columns(data, _shaped(shape), n)  # all points shaped like the first?
     if cols is None:
+        shape = None
         cols = _bulk_columns(data, GENERAL, n)
     if cols is None:
         return None
-    # Now every "<trkpt" starts a canonical point, so the cheap span pattern finds the same spans.
-    skeleton, n_spans = _SPAN_RE.subn(b"\x01", data)
-    found = _segments_from_skeleton(skeleton) if n_spans == n else None
+    # Now every "<trkpt" starts a canonical point (count = matches, matches start only there).
+    if shape is not None and any(shape[2:]):
+        marked, runs = _skeleton_by_runs(data)  # every point ends with "</trkpt>"
+    else:
+        marked, runs = _skeleton_by_spans(data)
+    found = _segments_from_skeleton(marked, runs) if sum(runs) == n else None
     if found is None or sum(found[1]) != n:
         return None
     fmt, seg_sizes = found
@@ -209,19 +215,52 @@ def _valid_utf8(data: bytes) -> bool:
     return True
 
 
-def _segments_from_skeleton(skeleton: bytes) -> tuple[str, list[int]] | None:
+def _placeholder(i: int) -> bytes:
+    return b'<%s i="%d"/>' % (_PLACEHOLDER.encode(), i)
+
+
+def _skeleton_by_runs(data: bytes) -> tuple[bytes, list[int]]:
+    """Skeleton for files whose points all end with ``</trkpt>``: one cheap scan for run ends.
+
+    A run is points separated by whitespace only. Given that every ``<trkpt`` starts a
+    canonical point (which holds no ``<trkpt`` or ``</trkpt>`` inside), the first
+    ``</trkpt>`` + whitespace *not* followed by ``<trkpt`` at or after a run's first point is
+    that run's end, and the run's points are the ``<trkpt`` occurrences in between.
+    """
+    pieces: list[bytes] = []
+    runs: list[int] = []
+    prev = 0
+    start = data.find(b"<trkpt")
+    while start >= 0:
+        m = _RUN_END_RE.search(data, start)
+        if m is None:
+            return b"", [-1]
+        end = m.end()
+        pieces += (data[prev:start], _placeholder(len(runs)))
+        runs.append(data.count(b"<trkpt", start, end))
+        prev = end
+        start = data.find(b"<trkpt", end)
+    pieces.append(data[prev:])
+    return b"".join(pieces), runs
+
+
+def _skeleton_by_spans(data: bytes) -> tuple[bytes, list[int]]:
+    """Skeleton for any canonical file (self-closing points too): each point's span replaced."""
+    runs: list[int] = []
+
+    def mark(m: re.Match) -> bytes:
+        runs.append(len(m.group()))
+        return _placeholder(len(runs) - 1)
+
+    return _RUN_RE.sub(mark, _SPAN_RE.sub(b"\x01", data)), runs
+
+
+def _segments_from_skeleton(marked: bytes, runs: list[int]) -> tuple[str, list[int]] | None:
     """Parse the skeleton; return the format and the point count of each non-empty trkseg.
 
     ``None`` when the skeleton is not a GPX document whose every placeholder (in order) is a
     direct child of ``gpx/trk/trkseg``, or when a track point is left that the pattern refused.
     """
-    runs: list[int] = []
-
-    def mark(m: re.Match) -> bytes:
-        runs.append(len(m.group()))
-        return b'<%s i="%d"/>' % (_PLACEHOLDER.encode(), len(runs) - 1)
-
-    marked = _RUN_RE.sub(mark, skeleton)
     try:
         root = etree.fromstring(marked, etree.XMLParser(**XML_OPTIONS))
         ns, fmt = root_format("", root)
