@@ -355,3 +355,14 @@ def test_error_while_writing_leaves_nothing_behind(tmp_path, findings, monkeypat
         write_findings(out, secs, prof, run, force=True)
     assert out.read_bytes() == b"old"
     assert sorted(os.listdir(tmp_path)) == ["f.geojson"]
+
+
+def test_run_info_for_log_reads_the_checksum(tmp_path):
+    import hashlib
+
+    log = tmp_path / "kite-hill.nmea"
+    log.write_bytes(b"$GPGGA,invented*00\r\n")
+    prof = road_profile(ROAD)
+    run = RunInfo.for_log(log, prof, Limits(sharp_radius_m=80.0))
+    assert run.input_sha256 == hashlib.sha256(log.read_bytes()).hexdigest()  # hashlib, FIPS 180-4
+    assert run.frame == prof.frame and run.limits["sharp_radius_m"] == 80.0

@@ -62,6 +62,15 @@ class RunInfo:
     def design_on(self) -> bool:
         return self.limits.get("design_speed_kmh") is not None
 
+    @classmethod
+    def for_log(cls, log_path, profile: Profile, limits, settings: dict | None = None) -> "RunInfo":
+        """Provenance for a log: its SHA-256 (read now), the profile's frame and ``limits``
+        (a ``survey.design.Limits`` or a plain dict)."""
+        from ..marks import file_sha256
+
+        lim = limits.as_dict() if hasattr(limits, "as_dict") else dict(limits)
+        return cls(str(log_path), file_sha256(log_path)[0], profile.frame, lim, dict(settings or {}))
+
 
 def section_record(sec: Section) -> dict:
     """One section as an ordered dict of plain values (None for not defined), not neutralised."""
