@@ -180,7 +180,7 @@ def test_changed_log_is_reported_as_a_warning(log, tmp_path, fake_pipeline, caps
     [
         ("exact", 0.05),  # no receiver error
         ("dual", 0.05),  # dual-frequency receiver error model of survey.synthetic
-        ("phone", None),  # phone-grade error: only the section count and ends are asserted
+        ("phone", None),  # phone-grade error: coverage of the arc asserted, not the radius
     ],
 )
 def test_end_to_end_on_a_gpx_road_log(tmp_path, capsys, grade, radius_rel):
@@ -206,10 +206,16 @@ def test_end_to_end_on_a_gpx_road_log(tmp_path, capsys, grade, radius_rel):
     above = traj.curvature_per_m >= leave
     edges = np.flatnonzero(np.diff(above.astype(int)))
     expect = traj.chainage_m[edges].reshape(-1, 2)
-    for r, (a, b) in zip(rows, expect):
-        # 10 m: on the clothoids curvature changes by 1/(100 m * 80 m) per metre, so a smoother
-        # that blurs over a few metres moves the crossing by a few metres (our allowance).
-        assert float(r["start_chainage_m"]) == pytest.approx(a, abs=10.0)
-        assert float(r["end_chainage_m"]) == pytest.approx(b, abs=10.0)
+    # Constant-radius part of each arc (construction: curvature exactly 1/R there).
+    on_arc = np.abs(traj.plan_curvature_per_m) >= 0.999 / 100.0
+    arc = traj.chainage_m[np.flatnonzero(np.diff(on_arc.astype(int)))].reshape(-1, 2)
+    for r, (a, b), (arc_a, arc_b) in zip(rows, expect, arc):
+        start, end = float(r["start_chainage_m"]), float(r["end_chainage_m"])
+        # The whole arc is one section, and it stops inside the 80 m clothoids on either side.
+        assert arc_a - 80.0 <= start <= arc_a and arc_b <= end <= arc_b + 80.0
         if radius_rel is not None:
+            # 10 m: on the clothoids curvature changes by 1/(100 m * 80 m) per metre, so a
+            # smoother that blurs over a few metres moves the crossing by a few metres.
+            assert start == pytest.approx(a, abs=10.0)
+            assert end == pytest.approx(b, abs=10.0)
             assert float(r["min_radius_m"]) == pytest.approx(100.0, rel=radius_rel)
