@@ -1,9 +1,14 @@
-"""``trackframe demo``: run the main job on a bundled demo log."""
+"""``trackframe demo``: run the main job on a bundled demo log.
+
+On a terminal it opens the viewer on the log; when standard output is not a terminal (a pipe,
+a test, CI) or with ``--text`` it prints the text summary instead, so it never waits for keys.
+"""
 
 from __future__ import annotations
 
 import argparse
 import os
+import sys
 from pathlib import Path
 
 from ..errors import InputError
@@ -12,6 +17,13 @@ from ..summary import format_summary, summarize
 
 #: Demo log opened when no name is given.
 DEFAULT_DEMO = "ridge_trail_phone.gpx"
+
+#: Starting limits preset per demo scene (survey.design.PRESETS); others use the viewer default.
+DEMO_PRESETS = {
+    "ridge_trail_phone.gpx": "ride-trail",
+    "van_route_tunnel.nmea": "road-80",
+    "drone_mast_orbit.csv": "drone-orbit",
+}
 
 
 def demo_dir() -> Path:
@@ -37,11 +49,16 @@ def add_parser(subparsers) -> None:
     p = subparsers.add_parser(
         "demo",
         help="run trackframe on a bundled demo log",
-        description="Run trackframe on one of the bundled demo logs (default: "
-        f"{DEFAULT_DEMO}). --list shows them.",
+        description="Open one of the bundled demo logs in the viewer (default: "
+        f"{DEFAULT_DEMO}). --list shows them. Without a terminal, or with --text, print its "
+        "summary instead.",
     )
     p.add_argument("name", nargs="?", default=DEFAULT_DEMO, help="demo log file name")
     p.add_argument("--list", action="store_true", help="list the demo logs and exit")
+    p.add_argument("--text", action="store_true", help="print the text summary instead of opening the viewer")
+    from .view import add_view_arguments
+
+    add_view_arguments(p)
     p.set_defaults(run=run)
 
 
@@ -55,5 +72,14 @@ def run(args: argparse.Namespace) -> int:
     if chosen is None:
         names = ", ".join(p.name for p in logs)
         raise InputError(args.name, f"no such demo log (choose from {names})")
-    print(format_summary(summarize(load_log(str(chosen)))))
-    return 0
+    if args.text or not (sys.stdin.isatty() and sys.stdout.isatty()):
+        print(format_summary(summarize(load_log(str(chosen)))))
+        return 0
+    from tui.app import DEFAULT_LIMITS
+
+    from ..design import preset_limits
+    from .view import open_viewer, view_limits
+
+    preset = DEMO_PRESETS.get(chosen.name)
+    limits = view_limits(args, preset_limits(preset) if preset else DEFAULT_LIMITS)
+    return open_viewer(str(chosen), {}, args.step, limits)
