@@ -111,6 +111,13 @@ class _Pattern:
             parts.append(rb">" + _WS + body + rb"</trkpt>" + _WS)
         self.regex = re.compile(b"".join(parts))
 
+    def requires(self, field_name: str) -> bool:
+        """True when every match of this pattern has ``field_name`` (shape says it is present)."""
+        if self.shape is None:
+            return False
+        index = {"ele": 2, "time": 3, "sat": 4, "hdop": 5}.get(field_name)
+        return index is not None and bool(self.shape[index])
+
 
 #: Matches every canonical track point; used to learn the file's shape and as the fallback.
 GENERAL = _Pattern(None)
@@ -314,7 +321,7 @@ def _bulk_columns(data: bytes, pat: _Pattern, n: int) -> dict | None:
                 parts[key].append(np.fromiter(map(float, col), np.float64, len(col)))
             for key in ("ele", "sat", "hdop"):
                 col = c[g[key][0]] if g[key] else None
-                parts[key].append(_optional_numbers(col, len(rows)))
+                parts[key].append(_optional_numbers(col, len(rows), required=pat.requires(key)))
             if g["time"]:
                 stamps = np.array(c[g["time"][0]], dtype="S35")
                 parts["time"].append(gpx_times_to_epoch(stamps))
@@ -323,8 +330,8 @@ def _bulk_columns(data: bytes, pat: _Pattern, n: int) -> dict | None:
                 parts["time"].append(np.full(len(rows), np.nan))
         except (ValueError, TimeError):  # a number or time the safe path must report
             return None
-        has_sat = has_sat or bool(g["sat"]) and any(c[g["sat"][0]])
-        has_hdop = has_hdop or bool(g["hdop"]) and any(c[g["hdop"][0]])
+        has_sat = has_sat or bool(g["sat"]) and (pat.requires("sat") or any(c[g["sat"][0]]))
+        has_hdop = has_hdop or bool(g["hdop"]) and (pat.requires("hdop") or any(c[g["hdop"][0]]))
     if count != n:
         return None
     out = {k: np.concatenate(v) for k, v in parts.items()}
@@ -332,11 +339,11 @@ def _bulk_columns(data: bytes, pat: _Pattern, n: int) -> dict | None:
     return out
 
 
-def _optional_numbers(strings, n: int) -> np.ndarray:
+def _optional_numbers(strings, n: int, required: bool = False) -> np.ndarray:
     """Floats from captured strings, NaN where the capture is empty (element absent)."""
     if strings is None:
         return np.full(n, np.nan)
-    if all(strings):
+    if required or all(strings):
         return np.fromiter(map(float, strings), np.float64, n)
     return np.fromiter((float(v) if v else np.nan for v in strings), np.float64, n)
 
