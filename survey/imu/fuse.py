@@ -52,6 +52,7 @@ DEFAULTS = {
     "outage_factor": 2.5,
     "saturation_noise_factor": 100.0,
     "max_offset_s": 2.0,
+    "decorrelation_s": 1.0,
 }
 
 
@@ -92,6 +93,8 @@ class FusedPath:
         ``(start_s, end_s)`` of every GNSS outage bridged by the IMU.
     epoch_time_s, accel_bias_mps2, gyro_bias_radps, bias_sd
         Smoothed biases at the filter epochs ((N, 3) each; ``bias_sd`` (N, 6)).
+    epoch_cov
+        (N, 15, 15) smoothed error-state covariance at the epochs (order dp, dv, dtheta, dba, dbg).
     time_offset_s
         Offset added to the IMU times (given or estimated), s.
     fixes_used, fixes_rejected
@@ -121,6 +124,7 @@ class FusedPath:
     accel_bias_mps2: FloatArray
     gyro_bias_radps: FloatArray
     bias_sd: FloatArray
+    epoch_cov: FloatArray
     time_offset_s: float
     fixes_used: int
     fixes_rejected: int
@@ -361,19 +365,22 @@ def fuse(
         sig = np.where(np.isfinite(sig) & (sig > 0), sig, cfg["default_sigma_h_m"])
     check = check_imu(imu, t)
     msgs.extend(check.messages)
-    # time offset
-    offset_note = "given"
-    if time_offset_s is None:
-        from .timing import estimate_time_offset
+    if time_offset_s is not None:
+        return _fuse_once(t, enu, sig, imu.shifted(float(time_offset_s)) if time_offset_s else imu, spec, cfg,
+                          msgs, float(time_offset_s), "given", check.rate_hz)
+    from .timing import estimate_time_offset
 
-        est = estimate_time_offset(t, enu, imu, max_lag_s=cfg["max_offset_s"])
-        msgs.append(est.message)
-        offset = est.offset_s if est.significant else 0.0
-        offset_note = "estimated" if est.significant else "estimated, not significant: 0 used"
-    else:
-        offset = float(time_offset_s)
-    if offset:
-        imu = imu.shifted(offset)
+    est = estimate_time_offset(t, enu, imu, max_lag_s=cfg["max_offset_s"])
+    msgs.append(est.message)
+    offset = est.offset_s if est.significant else 0.0
+    note = "estimated" if est.significant else "estimated, not significant: 0 used"
+    return _fuse_once(t, enu, sig, imu.shifted(offset) if offset else imu, spec, cfg, msgs, offset, note, check.rate_hz)
+
+
+def _fuse_once(t, enu, sig, imu: ImuLog, spec: MemsSpec, cfg: dict, msgs: list[str], offset: float,
+               offset_note: str, imu_rate_hz: float) -> FusedPath:
+    """One fusion with the IMU already on the GNSS clock."""
+    msgs = list(msgs)
     keep = (t >= imu.time_s[0]) & (t <= imu.time_s[-1]) & np.isfinite(enu[:, 0]) & np.isfinite(enu[:, 1])
     if keep.sum() < 3:
         raise InputError(imu.path, "fewer than 3 GNSS fixes fall inside the IMU log's time span")
@@ -381,6 +388,11 @@ def fuse(
         msgs.append(f"{int((~keep).sum())} GNSS fixes outside the IMU span (or without position) left out")
     t, enu, sig = t[keep], enu[keep], sig[keep]
     var = np.column_stack((sig**2, sig**2, (cfg["vertical_factor"] * sig) ** 2))
+    # Receiver errors are correlated over seconds or more: fixes faster than ``decorrelation_s``
+    # are de-weighted so that they carry no more information per second than fixes that far
+    # apart (common practice; otherwise the filter grows overconfident and gates good fixes).
+    interval = float(np.median(np.diff(t))) if len(t) > 1 else 1.0
+    var = var * max(1.0, cfg["decorrelation_s"] / interval)
     epochs = _epochs(t, cfg["max_epoch_s"])
     N = len(epochs)
     fix_at = np.searchsorted(epochs, t)
@@ -418,7 +430,7 @@ def fuse(
     bias_sd = np.sqrt(np.stack([np.diagonal(Ps, axis1=1, axis2=2)[:, 9:15]])[0])
     settings_out = {
         "fusion": "GNSS/IMU error-state EKF (15 states) + RTS smoother on preintegrated IMU",
-        "imu_rate_hz": round(check.rate_hz, 3),
+        "imu_rate_hz": round(imu_rate_hz, 3),
         "imu_noise_class": spec.name,
         "time_offset_s": offset,
         "time_offset": offset_note,
@@ -427,12 +439,12 @@ def fuse(
         "fixes_used": int(run.accepted.sum()),
         "fixes_rejected": rejected,
         "outages": len(outages),
-        **{k: cfg[k] for k in ("output_rate_hz", "accel_smoothing_s", "max_epoch_s", "gate_prob", "iterations",
+        **{k: cfg[k] for k in ("output_rate_hz", "accel_smoothing_s", "max_epoch_s", "gate_prob", "iterations", "decorrelation_s",
                                "stationary_speed_mps")},
     }
     return FusedPath(
         **path, outage=out_mask, outages=tuple(outages), epoch_time_s=epochs, accel_bias_mps2=xs.ba,
-        gyro_bias_radps=xs.bg, bias_sd=bias_sd, time_offset_s=offset, fixes_used=int(run.accepted.sum()),
+        gyro_bias_radps=xs.bg, bias_sd=bias_sd, epoch_cov=Ps, time_offset_s=offset, fixes_used=int(run.accepted.sum()),
         fixes_rejected=rejected, settings=settings_out, messages=tuple(msgs),
     )
 
