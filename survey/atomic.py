@@ -7,12 +7,17 @@ half-written file, and no temporary file behind.
 from __future__ import annotations
 
 import contextlib
+import glob
 import os
 import tempfile
+import time
 from pathlib import Path
 from typing import IO, Iterator
 
 from .errors import InputError
+
+#: Age after which a temporary ``.part`` file is taken as left by a killed writer, s.
+STALE_PART_S = 60.0
 
 
 def check_output_path(path: str | os.PathLike[str], force: bool = False) -> Path:
@@ -36,6 +41,7 @@ def atomic_open(path: str | os.PathLike[str], mode: str = "w", **kwargs) -> Iter
     untouched.
     """
     target = Path(path)
+    remove_stale_parts(target)
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent or ".")
     try:
         # mkstemp creates 0600; give the file the mode a plain open() would (0666 less umask).
@@ -50,6 +56,19 @@ def atomic_open(path: str | os.PathLike[str], mode: str = "w", **kwargs) -> Iter
         with contextlib.suppress(FileNotFoundError):
             os.unlink(tmp)
         raise
+
+
+def remove_stale_parts(target: Path, older_than_s: float = STALE_PART_S) -> list[Path]:
+    """Delete temporary files a killed writer left beside ``target`` (``.NAME.*.part`` older than
+    ``older_than_s`` seconds; a live writer's file is younger). Returns what was removed."""
+    removed = []
+    now = time.time()
+    for part in (target.parent or Path(".")).glob(f".{glob.escape(target.name)}.*.part"):
+        with contextlib.suppress(OSError):
+            if now - part.stat().st_mtime > older_than_s:
+                part.unlink()
+                removed.append(part)
+    return removed
 
 
 def atomic_write_bytes(path: str | os.PathLike[str], data: bytes) -> None:

@@ -90,6 +90,8 @@ class Profile:
     lateral_accel_mps2: FloatArray
     torsion_reason: NDArray[np.int8]
     segment: NDArray[np.int32]
+    #: 1-sigma of plan curvature, 1/m (None when the builder does not provide it).
+    plan_curvature_sd_per_m: FloatArray | None = None
     step_m: float = 1.0
     height_ref: str = "unknown"
     frame: str = ""
@@ -101,7 +103,7 @@ class Profile:
 
     @staticmethod
     def array_fields() -> tuple[str, ...]:
-        """Names of the per-station array attributes."""
+        """Names of the per-station array attributes (optional ones may hold None)."""
         scalars = {"step_m", "height_ref", "frame", "settings", "messages"}
         return tuple(f.name for f in fields(Profile) if f.name not in scalars)
 
@@ -114,4 +116,5 @@ class Profile:
 
     def nbytes(self) -> int:
         """Memory held by the per-station arrays, bytes."""
-        return int(sum(getattr(self, n).nbytes for n in self.array_fields()))
+        arrays = (getattr(self, n) for n in self.array_fields())
+        return int(sum(a.nbytes for a in arrays if a is not None))
