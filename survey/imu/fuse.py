@@ -34,7 +34,8 @@ from scipy.ndimage import gaussian_filter1d
 from ..errors import InputError
 from .eskf import GRAVITY, NX, run_filter
 from .preint import make_substeps, preintegrate, so3_exp, so3_log
-from .reader import STANDARD_GRAVITY_MPS2, ImuLog, check_imu, saturation_mask
+from .reader import (MIN_FULL_SCALE_ACCEL_MPS2, MIN_FULL_SCALE_GYRO_RADPS, STANDARD_GRAVITY_MPS2, ImuLog,
+                     check_imu, saturation_mask)
 from .rts import rts_smooth
 from .synth import MPU9250, MemsSpec
 
@@ -404,7 +405,8 @@ def _fuse_once(t, enu, sig, imu: ImuLog, spec: MemsSpec, cfg: dict, msgs: list[s
     msgs.extend(amsgs)
     zupt = epochs <= static_end
     zupt[0] = zupt[0] and static_end > epochs[0]
-    sat = saturation_mask(imu.accel_mps2) | saturation_mask(imu.gyro_radps)
+    sat = (saturation_mask(imu.accel_mps2, min_full_scale=MIN_FULL_SCALE_ACCEL_MPS2)
+           | saturation_mask(imu.gyro_radps, min_full_scale=MIN_FULL_SCALE_GYRO_RADPS))
     scale = np.where(sat, cfg["saturation_noise_factor"], 1.0)
     steps = make_substeps(imu.time_s, imu.accel_mps2, imu.gyro_radps, epochs, scale)
     gpsd, apsd = spec.gyro_noise_radps_rthz**2, spec.accel_noise_mps2_rthz**2

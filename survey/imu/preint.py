@@ -171,7 +171,8 @@ def preintegrate(steps: SubSteps, ba_lin: FloatArray, bg_lin: FloatArray, gyro_p
         phi = w * h[:, None]
         dRk = so3_exp(phi)
         Jr = eye - 0.5 * skew(phi)  # right Jacobian of SO(3) to first order (|phi| << 1)
-        Ra = np.einsum("nij,nj->ni", dR, a)
+        # rotate the specific force with the mid-step attitude, dR Exp(phi/2) a ~ dR (a + phi x a / 2)
+        Ra = np.einsum("nij,nj->ni", dR, a + 0.5 * np.cross(phi, a))
         Rax = dR @ skew(a)
         # covariance (before the increments move on)
         A[:, 0:3, 0:3] = np.swapaxes(dRk, 1, 2)

@@ -298,7 +298,7 @@ def read_imu_csv(
             values[:, k - 1] = col.astype(np.float64)
         except ValueError:
             bad = next(i for i, c in enumerate(col) if not _is_float(c))
-            raise InputError(path, f"{header[wanted[k]]} {col[bad]!r} is not a number", f"line {lines[bad]}") from None
+            raise InputError(path, f"{header[wanted[k]]} {str(col[bad])!r} is not a number", f"line {lines[bad]}") from None
     core = np.column_stack((t, values[:, :6]))
     ok = np.isfinite(core).all(axis=1)
     if (~ok).any():
@@ -378,12 +378,20 @@ class ImuCheck:
     messages: tuple[str, ...]
 
 
-def saturation_mask(values: FloatArray, full_scale: float | None = None, run: int = 3) -> NDArray[np.bool_]:
+#: Smallest full-scale ranges of the MPU-9250 (PS-MPU-9250A-01): +-2 g and +-250 deg/s. A value
+#: pinned below these is a constant signal, not a clipped one.
+MIN_FULL_SCALE_ACCEL_MPS2 = 2.0 * STANDARD_GRAVITY_MPS2
+MIN_FULL_SCALE_GYRO_RADPS = 250.0 * np.pi / 180.0
+
+
+def saturation_mask(values: FloatArray, full_scale: float | None = None, run: int = 3,
+                    min_full_scale: float = 0.0) -> NDArray[np.bool_]:
     """Samples (any axis) at full scale.
 
     With ``full_scale`` (SI) a sample counts when |value| >= 0.999 full scale. Without it, a value
     pinned at its axis extreme for at least ``run`` consecutive samples counts (a clipped sensor
-    repeats its limit; real motion does not hold an extreme value exactly).
+    repeats its limit; real motion does not hold an extreme value exactly), provided the extreme
+    reaches 0.99 ``min_full_scale`` (the smallest range such a sensor offers).
     """
     a = np.abs(values)
     if full_scale is not None:
@@ -392,7 +400,7 @@ def saturation_mask(values: FloatArray, full_scale: float | None = None, run: in
     for k in range(values.shape[1]):
         col = a[:, k]
         top = col == col.max()
-        if top.sum() < run or col.max() == 0:
+        if top.sum() < run or col.max() < 0.99 * min_full_scale or col.max() == 0:
             continue
         # runs of consecutive pinned samples
         edges = np.diff(np.concatenate(([0], top.astype(np.int8), [0])))
@@ -414,7 +422,7 @@ def check_imu(
 
     Raises ``InputError`` when the IMU log and the GNSS log do not overlap in time at all (wrong
     clock or offset). Everything else becomes a message; see ``fuse`` for how each is handled
-    (gaps are bridged by holding the last sample with the filter's uncertainty growing; saturated
+    (gaps are bridged by interpolating the IMU signal, the uncertainty growing with time; saturated
     samples get inflated process noise).
     """
     t = imu.time_s
@@ -425,8 +433,10 @@ def check_imu(
     big = np.flatnonzero(dt > gap_factor * med)
     gaps = tuple((float(t[i]), float(t[i + 1])) for i in big)
     sat = {
-        "accel": int(saturation_mask(imu.accel_mps2, accel_full_scale_mps2).sum()),
-        "gyro": int(saturation_mask(imu.gyro_radps, gyro_full_scale_radps).sum()),
+        "accel": int(saturation_mask(imu.accel_mps2, accel_full_scale_mps2,
+                                     min_full_scale=MIN_FULL_SCALE_ACCEL_MPS2).sum()),
+        "gyro": int(saturation_mask(imu.gyro_radps, gyro_full_scale_radps,
+                                    min_full_scale=MIN_FULL_SCALE_GYRO_RADPS).sum()),
     }
     msgs = [f"IMU: {len(t)} samples at {rate:.4g} Hz, jitter {jitter * 1e3:.3g} ms"]
     for reason, count in imu.dropped.items():
@@ -436,7 +446,7 @@ def check_imu(
     if gaps:
         longest = max(b - a for a, b in gaps)
         msgs.append(f"IMU: {len(gaps)} gaps longer than {gap_factor:g} samples (longest {longest:.3g} s); "
-                    "bridged by holding the last sample")
+                    "bridged by interpolating across them")
     for sensor, count in sat.items():
         if count:
             msgs.append(f"IMU: {count} {sensor} samples at full scale (saturated); their noise is inflated")
