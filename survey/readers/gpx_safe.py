@@ -220,13 +220,17 @@ def root_format(path: str, root) -> tuple[str, str]:
     raise InputError(path, f"not a GPX 1.0/1.1 file (root namespace {ns!r})", f"line {root.sourceline}")
 
 
+#: Only these elements produce parse events (any namespace; checked against the root's below).
+_WATCHED = ["{*}trk", "{*}trkseg", "{*}trkpt", "{*}rte", "{*}rtept"]
+
+
 def read_safe(path: str, data: bytes) -> Fixes:
     """Read every track point (else every route point) with lxml's streaming parser.
 
     Memory stays bounded by the points, not the XML tree: finished points are freed as the
     parse goes on. Raises ``InputError`` for anything that is not valid GPX.
     """
-    it = etree.iterparse(io.BytesIO(data), events=("start", "end"), **XML_OPTIONS)
+    it = etree.iterparse(io.BytesIO(data), events=("start", "end"), tag=_WATCHED, **XML_OPTIONS)
     root = None
     ns = ""
     fmt = ""
@@ -236,11 +240,10 @@ def read_safe(path: str, data: bytes) -> Fixes:
     try:
         for event, el in it:
             if root is None:
-                root = el
+                root = el.getroottree().getroot()
                 ns, fmt = root_format(path, root)
                 pre = f"{{{ns}}}" if ns else ""
                 tags = {pre + k: k for k in ("trk", "trkseg", "trkpt", "rte", "rtept")}
-                continue
             kind = tags.get(el.tag)
             if kind is None:
                 continue
@@ -272,7 +275,10 @@ def read_safe(path: str, data: bytes) -> Fixes:
     except (ValueError, LookupError, UnicodeError) as exc:  # encoding problems lxml reports this way
         raise InputError(path, f"cannot decode the XML ({exc})") from None
     if root is None:
-        raise InputError(path, "not a GPX file (no XML element)")
+        root = it.root
+        if root is None:
+            raise InputError(path, "not a GPX file (no XML element)")
+        ns, fmt = root_format(path, root)
     if root.getroottree().docinfo.internalDTD is not None:  # belt and braces: gpx.py refuses first
         raise InputError(path, "refused: the XML declares a DTD/entities (GPX needs none)")
     kind = "trkpt" if pts["trkpt"] else "rtept"
