@@ -28,7 +28,7 @@ import numpy as np
 
 from . import __version__
 from .geometry import frenet
-from .smooth import NoiseModel, fit_noise, robust_white_var, smooth_stretch
+from .smooth import NoiseModel, fit_noise, robust_white_var, screen_outliers, smooth_stretch
 from .stations import TORSION_LOW_CURVATURE, TORSION_NO_DATA, TORSION_OK, Profile
 from .track import HEIGHT_NONE, Track
 
@@ -37,8 +37,10 @@ DEFAULTS = {
     "seed": 0,
     "wander_tau_s": 60.0,
     "vertical_factor": 1.7,
-    "stationary_speed_mps": 0.2,
+    "stop_sigmas": 2.0,
+    "slow_sigmas": 20.0,
     "kappa_sigmas": 3.0,
+    "accuracy_cap": 1.0,
     "fit_fixes": 2000,
     "min_fixes": 6,
     "robust_iterations": 3,
@@ -106,13 +108,24 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, *
         if len(t) < cfg["min_fixes"] or np.ptp(y[:, 0]) + np.ptp(y[:, 1]) == 0 or t[-1] <= t[0]:
             messages.append(f"segment {sid}: {len(t)} usable distinct fixes, too few to measure; skipped")
             continue
-        stretches.append((int(sid), t, y, bh, bv))
+        scr_h = screen_outliers(t, y[:, :2])
+        scr_v = np.zeros(len(t), bool)
+        if has_height:
+            zz = np.flatnonzero(np.isfinite(y[:, 2]))
+            if len(zz) >= cfg["min_fixes"]:
+                scr_v[zz] = screen_outliers(t[zz], y[zz, 2:])
+        stretches.append((int(sid), t, y, bh, bv, scr_h, scr_v | scr_h))
     if not stretches:
         messages.append("nothing to measure: no segment has enough distinct fixes that move")
         return empty_profile(track, frame, step_m, cfg, messages)
 
     # --- noise by maximum likelihood on a few stretches ---------------------------------------
-    model_h, model_v = _fit_models(stretches, use_acc, has_height, cfg)
+    fit_h, fit_v = _fit_models(stretches, use_acc, has_height, cfg)
+    model_h = fit_h.model
+    model_v = fit_v.model if fit_v is not None else None
+    if has_height and model_v is None:
+        has_height = False
+        messages.append("too few heights to smooth; heights ignored")
 
     # --- smooth each segment, place stations ---------------------------------------------------
     rng = np.random.default_rng(cfg["seed"])
@@ -121,12 +134,13 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, *
     last_pos = None
     knots = []
     lengths: list[float] = []
-    for sid, t, y, bh, bv in stretches:
-        sm = smooth_stretch(t, y, bh, bv, model_h, model_v if has_height else None,
+    for sid, t, y, bh, bv, scr_h, scr_v in stretches:
+        sm = smooth_stretch(t, y, bh, bv, model_h, model_v if has_height else None, scr_h, scr_v,
                             robust_iterations=cfg["robust_iterations"])
         knots.append([g.h for g in sm.groups])
-        v_min = cfg["stationary_speed_mps"] if has_time else 0.0
-        tg, sg = _chainage_table(sm, t[0], t[-1], step_m, v_min)
+        unc = _uncertainty(sm, t[0], t[-1], step_m, cfg, rng)
+        k_stop = cfg["stop_sigmas"] if has_time else 0.0
+        tg, sg, t_stop = _chainage_table(sm, t[0], t[-1], unc, k_stop)
         start = sm.at(np.array([t[0]]))[0, :, 0]
         if last_pos is not None:
             s_offset += float(np.linalg.norm(np.nan_to_num(start - last_pos)))
@@ -137,7 +151,7 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, *
             messages.append(f"segment {sid}: shorter than one station step; skipped")
             continue
         ts = np.interp(chain, s_abs, tg)
-        parts.append(_stations(sm, ts, chain, sid, has_time, has_height, rng, cfg))
+        parts.append(_stations(sm, ts, chain, sid, has_time, has_height, unc, t_stop, cfg))
         s_offset = float(s_abs[-1])
         lengths.append(float(sg[-1]))
         last_pos = sm.at(np.array([t[-1]]))[0, :, 0]
@@ -188,71 +202,88 @@ def _merge_repeats(t, y, bh, bv):
 
 
 def _fit_models(stretches, use_acc, has_height, cfg):
-    """Horizontal and vertical noise by maximum likelihood on at most three stretches."""
+    """Horizontal and vertical noise by maximum likelihood on at most three stretches (the middle
+    ``fit_fixes`` fixes of the longest ones); screened outliers are left out of the fit."""
     nfit = cfg["fit_fixes"]
     biggest = sorted(stretches, key=lambda s: -len(s[1]))[:3]
     pieces_h, pieces_v = [], []
-    for _, t, y, bh, bv in biggest:
+    for _, t, y, bh, bv, scr_h, scr_v in biggest:
         a = max(0, len(t) // 2 - nfit // 2)
         sl = slice(a, a + nfit)
-        pieces_h.append((t[sl], y[sl, :2], bh[sl]))
+        pieces_h.append((t[sl], y[sl, :2], np.where(scr_h[sl], np.inf, bh[sl])))
         if has_height:
             zz = np.isfinite(y[sl, 2])
             if zz.sum() >= cfg["min_fixes"]:
-                pieces_v.append((t[sl][zz], y[sl, 2:][zz], bv[sl][zz]))
-    wander = None if use_acc else cfg["wander_tau_s"]
-    if use_acc:
-        fh = fit_noise(pieces_h, estimate_scale=False, scale_floor=1.0, wander_tau_s=None, start_var=1.0)
-    else:
-        r0 = float(np.median([robust_white_var(p[1][:, 0]) for p in pieces_h]))
-        fh = fit_noise(pieces_h, estimate_scale=True, scale_floor=0.0, wander_tau_s=wander, start_var=r0)
-    model_v = None
-    if has_height and pieces_v:
-        if use_acc:
-            fv = fit_noise(pieces_v, estimate_scale=True, scale_floor=1.0, wander_tau_s=None,
-                           start_var=2.0 * float(np.median(pieces_v[0][2])))
-        else:
-            r0 = float(np.median([robust_white_var(p[1][:, 0]) for p in pieces_v]))
-            fv = fit_noise(pieces_v, estimate_scale=True, scale_floor=0.0, wander_tau_s=wander, start_var=r0)
-        model_v = fv.model
-    return fh.model, model_v
+                pieces_v.append((t[sl][zz], y[sl, 2:][zz], np.where(scr_v[sl], np.inf, bv[sl])[zz]))
+    cap = cfg["accuracy_cap"] if use_acc else None
+    tau = cfg["wander_tau_s"]
+
+    def start(pieces, k):
+        r0 = float(np.median([robust_white_var(np.where(np.isfinite(p[2]), p[1][:, k], np.nan)) for p in pieces]))
+        return r0
+
+    fh = fit_noise(pieces_h, tau, start(pieces_h, 0), cap)
+    fv = fit_noise(pieces_v, tau, start(pieces_v, 0), cap) if has_height and pieces_v else None
+    return fh, fv
 
 
-def _chainage_table(sm, t_start, t_end, step_m, v_min):
-    """(t, s) on a fine grid: chainage by the trapezoid rule on the smoothed 3D speed, frozen
-    where the speed is below ``v_min``; the grid is fine enough (<= step/8 of travel, and at
-    least 4 points per knot interval) that its error is far below the station step."""
+def _uncertainty(sm, t_start, t_end, step_m, cfg, rng) -> dict:
+    """1-sigma of kappa, tau and of the velocity from ``n_samples`` repeated-noise estimates
+    (``Smoothed.draw``), on a grid of times spaced twice the finest knot interval (the spreads
+    vary on the smoother's scale, four knot intervals or more) and interpolated from there.
+    Drawn a few samples at a time so memory stays bounded on long logs."""
     h = min(g.h for g in sm.groups)
-    tk = np.arange(t_start, t_end + h, h)
-    vmax = float(np.nanmax(np.linalg.norm(sm.at(np.clip(tk, t_start, t_end))[:, :, 1], axis=1)))
-    dt = min(h / 4.0, (step_m / 8.0) / max(vmax, 1e-9))
-    ng = int(np.ceil((t_end - t_start) / dt)) + 1
+    m = max(int(np.ceil((t_end - t_start) / (2.0 * h))) + 1, 2)
+    te = np.linspace(t_start, t_end, m)
+    ns = int(cfg["n_samples"])
+    kap = np.empty((ns, m))
+    tor = np.empty((ns, m))
+    vel = np.empty((ns, m, 3))
+    block = 8
+    for a in range(0, ns, block):
+        b = min(ns, a + block)
+        smp = sm.samples_at(sm.draw(b - a, rng), te)
+        g = frenet(smp[..., 1], smp[..., 2], smp[..., 3])
+        kap[a:b] = g["curvature_per_m"]
+        tor[a:b] = np.nan_to_num(g["torsion_per_m"])
+        vel[a:b] = smp[..., 1]
+    # torsion samples have heavy tails where kappa is small: half the central 68 % range
+    q16, q84 = np.percentile(tor, [15.87, 84.13], axis=0)
+    return {
+        "t": te,
+        "kappa_sd": np.std(kap, axis=0, ddof=1),
+        "tau_sd": 0.5 * (q84 - q16),
+        "speed_sd": np.sqrt(np.sum(np.var(vel, axis=0, ddof=1), axis=1)),
+    }
+
+
+def _chainage_table(sm, t_start, t_end, unc, k_stop):
+    """(t, s, stop times): chainage by the trapezoid rule on the smoothed 3D speed, on a grid of a quarter of
+    the finest knot interval (the speed is a smooth polynomial between knots, so the error is far
+    below a station step). Where the speed is not significantly above zero (below ``k_stop``
+    times its 1-sigma, from the repeated-noise estimates) the mover is taken as stopped and the
+    chainage does not advance: kappa is per metre of path and is never evaluated in a stop."""
+    h = min(g.h for g in sm.groups)
+    ng = int(np.ceil(4.0 * (t_end - t_start) / h)) + 1
     tg = np.linspace(t_start, t_end, ng)
     speed = np.empty(ng)
     for a in range(0, ng, 500_000):
         speed[a : a + 500_000] = np.linalg.norm(sm.at(tg[a : a + 500_000])[:, :, 1], axis=1)
-    speed = np.where(speed > v_min, speed, 0.0)
+    v_min = k_stop * np.interp(tg, unc["t"], unc["speed_sd"])
+    stopped = speed <= v_min
+    speed = np.where(stopped, 0.0, speed)
     s = np.concatenate(([0.0], np.cumsum(0.5 * (speed[1:] + speed[:-1]) * np.diff(tg))))
     keep = np.concatenate(([True], np.diff(s) > 0))
-    return tg[keep], s[keep]
+    return tg[keep], s[keep], tg[stopped]
 
 
-def _stations(sm, ts, chain, sid, has_time, has_height, rng, cfg) -> dict:
+def _stations(sm, ts, chain, sid, has_time, has_height, unc, t_stop, cfg) -> dict:
     """All per-station arrays of one segment."""
     st = sm.at(ts)
     g = frenet(st[:, :, 1], st[:, :, 2], st[:, :, 3])
     n = len(ts)
-    k_sd = np.empty(n)
-    t_sd = np.empty(n)
-    drawn = sm.draw(cfg["n_samples"], rng)
-    chunk = max(1, cfg["station_chunk"] // max(cfg["n_samples"], 1))
-    for a in range(0, n, chunk):
-        smp = sm.samples_at(drawn, ts[a : a + chunk])
-        gs = frenet(smp[..., 1], smp[..., 2], smp[..., 3])
-        k_sd[a : a + chunk] = np.std(gs["curvature_per_m"], axis=0, ddof=1)
-        # torsion samples have heavy tails where kappa is small: half the central 68 % range
-        q16, q84 = np.nanpercentile(gs["torsion_per_m"], [15.87, 84.13], axis=0)
-        t_sd[a : a + chunk] = 0.5 * (q84 - q16)
+    k_sd = np.interp(ts, unc["t"], unc["kappa_sd"])
+    t_sd = np.interp(ts, unc["t"], unc["tau_sd"])
     kappa = g["curvature_per_m"]
     tau = g["torsion_per_m"]
     significant = kappa > cfg["kappa_sigmas"] * k_sd
@@ -270,7 +301,7 @@ def _stations(sm, ts, chain, sid, has_time, has_height, rng, cfg) -> dict:
         plan = g["plan_curvature_per_m"]
         plan_radius = 1.0 / plan
     nan = np.full(n, np.nan)
-    return {
+    out = {
         "chainage_m": chain,
         "time_s": ts if has_time else nan.copy(),
         "east_m": st[:, 0, 0],
@@ -293,6 +324,51 @@ def _stations(sm, ts, chain, sid, has_time, has_height, rng, cfg) -> dict:
         "torsion_reason": reason,
         "segment": np.full(n, sid, np.int32),
     }
+    if has_time:
+        slow = _near_stops(ts, g["speed"] < cfg["slow_sigmas"] * np.interp(ts, unc["t"], unc["speed_sd"]), t_stop)
+        if slow.any() and not slow.all():
+            _hold_geometry(out, slow)
+    return out
+
+
+def _near_stops(ts: np.ndarray, slow: np.ndarray, t_stop: np.ndarray) -> np.ndarray:
+    """Keep only the runs of slow stations that run into a stop (a time in ``t_stop`` between the
+    station before the run and the one after it): slowing down to a standstill, not a steady
+    crawl whose heading is simply less precise."""
+    if not slow.any() or len(t_stop) == 0:
+        return np.zeros_like(slow)
+    edges = np.diff(np.r_[0, slow.astype(np.int8), 0])
+    starts, ends = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1
+    lo = ts[np.maximum(starts - 1, 0)]
+    hi = ts[np.minimum(ends + 1, len(ts) - 1)]
+    hits = np.searchsorted(t_stop, hi, side="right") - np.searchsorted(t_stop, lo, side="left") > 0
+    out = np.zeros_like(slow)
+    for a, b in zip(starts[hits], ends[hits]):  # one iteration per stop, not per station
+        out[a : b + 1] = True
+    return out
+
+
+_GEOMETRY_KEYS = ("tangent", "normal", "binormal", "curvature_per_m", "radius_m", "torsion_per_m",
+                  "curvature_sd_per_m", "torsion_sd_per_m", "plan_curvature_per_m", "plan_radius_m",
+                  "vertical_curvature_per_m", "grade_pct", "torsion_reason")
+
+
+def _hold_geometry(cols: dict, slow: np.ndarray) -> None:
+    """Give stations where the mover is nearly stopped the geometry of the nearest station where
+    it is not (in place). Near a standstill the direction of travel is set by receiver noise
+    (kappa = |v x a|/|v|^3 blows up, REFERENCES.md), so the shape there is not measured; the few
+    stations in such a stretch (the chainage hardly advances) carry the neighbouring, measured
+    geometry instead of noise."""
+    good = np.flatnonzero(~slow)
+    bad = np.flatnonzero(slow)
+    right = np.clip(np.searchsorted(good, bad), 0, len(good) - 1)
+    left = np.clip(right - 1, 0, len(good) - 1)
+    s = cols["chainage_m"]
+    use_left = np.abs(s[good[left]] - s[bad]) <= np.abs(s[good[right]] - s[bad])
+    src = np.where(use_left, good[left], good[right])
+    for k in _GEOMETRY_KEYS:
+        cols[k][bad] = cols[k][src]
+    cols["lateral_accel_mps2"][bad] = cols["speed_mps"][bad] ** 2 * cols["curvature_per_m"][bad]
 
 
 def _settings(cfg, step_m, model_h: NoiseModel, model_v: NoiseModel | None, use_acc, has_time, knots) -> dict:
@@ -301,7 +377,8 @@ def _settings(cfg, step_m, model_h: NoiseModel, model_v: NoiseModel | None, use_
         "method": "constant-jerk RTS-equivalent banded smoother, noise by maximum likelihood",
         "parameter": "time" if has_time else "raw chainage (log has no time)",
         "step_m": float(step_m),
-        "measurement_noise": "per-fix accuracy as a floor" if use_acc else "estimated (white + Gauss-Markov wander)",
+        "measurement_noise": ("white + Gauss-Markov wander by ML, total bounded by accuracy_cap x stated accuracy^2"
+                              if use_acc else "white + Gauss-Markov wander by ML"),
         "snap_psd_h_m2_s7": model_h.snap_psd,
         "var_scale_h": model_h.var_scale,
         "wander_var_h_m2": model_h.wander_var_m2,
@@ -311,7 +388,7 @@ def _settings(cfg, step_m, model_h: NoiseModel, model_v: NoiseModel | None, use_
     if model_v is not None:
         out.update(snap_psd_v_m2_s7=model_v.snap_psd, var_scale_v=model_v.var_scale,
                    wander_var_v_m2=model_v.wander_var_m2)
-    for k in ("n_samples", "seed", "wander_tau_s", "vertical_factor", "stationary_speed_mps", "kappa_sigmas", "robust_iterations"):
+    for k in ("n_samples", "seed", "wander_tau_s", "vertical_factor", "stop_sigmas", "slow_sigmas", "kappa_sigmas", "accuracy_cap", "robust_iterations"):
         out[k] = cfg[k]
     return out
 

@@ -356,6 +356,105 @@ def draw_samples(U: FloatArray, dim: int, n_samples: int, rng: np.random.Generat
     return x.T.reshape(n_samples, -1, dim)
 
 
+def design_matrix(system: AxisSystem):
+    """Sparse measurement matrix H (n, K d): fix i measures H[i] . x (path + wander)."""
+    from scipy.sparse import csr_matrix
+
+    n, width = system.rows.shape
+    cols = system.design.interval[:, None] * system.dim + np.arange(width)[None, :]
+    K = system.design.n_knots
+    indptr = np.arange(0, n * width + 1, width)
+    return csr_matrix((system.rows.ravel(), cols.ravel(), indptr), shape=(n, K * system.dim))
+
+
+def noise_draws(
+    system: AxisSystem, U: FloatArray, white_var: FloatArray, model: NoiseModel, n_samples: int,
+    rng: np.random.Generator,
+) -> FloatArray:
+    """Sampling error of the estimated knot states under repeated receiver noise, (n_samples, K, dim).
+
+    The estimate is linear in the fixes, x_hat = Lambda^-1 H^T W y, so its error for a fixed true
+    path is Lambda^-1 H^T W (e + b): ``e`` white noise of variance ``white_var`` per fix and ``b``
+    the model's Gauss-Markov wander (simulated exactly on the knot grid, interpolated like the
+    wander state). Each draw is one fresh realisation of the receiver error passed through the
+    very same smoother, which is what "covers the truth at its stated rate on repeated noisy
+    logs" asks for (the Bayesian posterior spread also contains the prior's spread of paths, which
+    a fixed smooth path does not have, and over-covers for higher derivatives).
+    """
+    n = len(system.y)
+    ok = system.w > 0
+    e = rng.standard_normal((n, n_samples)) * np.sqrt(np.where(ok, white_var, 0.0))[:, None]
+    if model.wander_var_m2 > 0:
+        K = system.design.n_knots
+        phi = float(np.exp(-system.design.h / model.wander_tau_s))
+        from scipy.signal import lfilter
+
+        z = rng.standard_normal((K, n_samples)) * np.sqrt(model.wander_var_m2 * (1.0 - phi**2))
+        z[0] = rng.standard_normal(n_samples) * np.sqrt(model.wander_var_m2)
+        b = lfilter([1.0], [1.0, -phi], z, axis=0)
+        k, s = system.design.interval, system.design.sigma[:, None]
+        e += (1.0 - s) * b[k] + s * b[k + 1]
+    rhs = design_matrix(system).T @ (e * system.w[:, None])
+    x = cho_solve_banded((U, False), rhs, check_finite=False)
+    return x.T.reshape(n_samples, -1, system.dim)
+
+
+# --------------------------------------------------------------------------------------------
+# Gross outliers before any fitting
+# --------------------------------------------------------------------------------------------
+
+
+def screen_outliers(t: FloatArray, Y: FloatArray, z: float = 6.0, passes: int = 3) -> NDArray[np.bool_]:
+    """Mask of gross outliers (multipath jumps), found before any noise is fitted.
+
+    Maximum likelihood explains a 30 m jump among 0.3 m fixes by a path that swerves through it
+    (a huge snap density), after which no residual looks large; so gross jumps must be removed
+    first. Each interior fix is predicted by the cubic through its two neighbours on each side
+    (Lagrange interpolation in ``t``, exact for irregular sampling); smooth motion leaves a residual
+    of the order of the receiver noise, a jump its full size. A fix is flagged where the residual
+    norm exceeds ``z`` robust sigmas (median absolute deviation of the residual components,
+    scaled by 1.4826: Rousseeuw & Croux 1993, common practice) and is the local peak (the jump
+    also shows, at 2/3 of its size, in its neighbours' predictions). Repeated ``passes`` times
+    with flagged fixes removed so clusters are peeled.
+
+    Parameters
+    ----------
+    t
+        (n,) strictly increasing times (s) or chainage (m).
+    Y
+        (n, A) positions, m; rows with NaN are neither tested nor used.
+    """
+    n = len(t)
+    bad = ~np.all(np.isfinite(Y), axis=1)
+    out = np.zeros(n, bool)
+    for _ in range(passes):
+        idx = np.flatnonzero(~(out | bad))
+        if idx.size < 7:
+            break
+        tt, yy = t[idx], Y[idx]
+        i = np.arange(2, len(idx) - 2)
+        nodes = np.stack([tt[i - 2], tt[i - 1], tt[i + 1], tt[i + 2]], axis=1)
+        w = np.ones_like(nodes)
+        for j in range(4):  # four nodes, not a loop over fixes
+            for q in range(4):
+                if q != j:
+                    w[:, j] *= (tt[i] - nodes[:, q]) / (nodes[:, j] - nodes[:, q])
+        pred = np.einsum("mk,mka->ma", w, np.stack([yy[i - 2], yy[i - 1], yy[i + 1], yy[i + 2]], axis=1))
+        res = yy[i] - pred
+        dev = res - np.median(res, axis=0)
+        sigma = 1.4826 * float(np.median(np.abs(dev)))
+        if not sigma > 0:
+            break
+        size = np.zeros(len(idx))
+        size[i] = np.linalg.norm(dev, axis=1) / sigma
+        peak = (size >= np.r_[0.0, size[:-1]]) & (size >= np.r_[size[1:], 0.0])
+        flag = (size > z * np.sqrt(Y.shape[1])) & peak
+        if not flag.any():
+            break
+        out[idx[flag]] = True
+    return out
+
+
 # --------------------------------------------------------------------------------------------
 # Maximum-likelihood noise
 # --------------------------------------------------------------------------------------------
@@ -373,51 +472,66 @@ def robust_white_var(y: FloatArray) -> float:
 
 @dataclass(frozen=True)
 class FitResult:
+    """Noise chosen by maximum likelihood; ``at_cap`` True when the stated accuracy bound binds."""
+
     model: NoiseModel
     log_likelihood: float
     evaluations: int
+    at_cap: bool = False
+
+
+def _sigmoid(x: float) -> float:
+    return float(1.0 / (1.0 + np.exp(-x)))
 
 
 def fit_noise(
     pieces: list[tuple[FloatArray, FloatArray, FloatArray]],
-    estimate_scale: bool,
-    scale_floor: float,
-    wander_tau_s: float | None,
+    wander_tau_s: float,
     start_var: float,
+    cap: float | None = None,
 ) -> FitResult:
-    """Choose q (and the variance scale, and the wander size) by maximum marginal likelihood.
+    """Choose the snap density q, the white variance and the wander variance by maximum marginal
+    likelihood.
 
     Parameters
     ----------
     pieces
         Independent stretches of data, each (t (n,), Y (n, A), base_var (n,)); the A axes share one
-        noise model (east and north) and their log-likelihoods add. Times strictly increasing.
-    estimate_scale
-        Estimate the variance scale s >= ``scale_floor`` (else s = ``scale_floor``).
-    scale_floor
-        Lower bound of the variance scale: with per-fix accuracy, 1 means "never trust a fix more
-        than its stated accuracy", a floor that also guards against reading wander as bends.
+        noise model (east and north) and their log-likelihoods add. Times strictly increasing;
+        base_var = inf excludes a fix (screened outlier).
     wander_tau_s
-        Model a Gauss-Markov wander with this correlation time (None: white noise only).
+        Correlation time of the Gauss-Markov wander, s.
     start_var
         Rough white variance (m^2) to start from.
+    cap
+        None: ``base_var`` is 1 and the white variance (m^2) and the wander variance are free.
+        A number: ``base_var`` is the stated accuracy^2 of each fix, which bounds the TOTAL error:
+        white_i = g f base_i and wander = g (1 - f) median(base), with 0 < f < 1 and
+        0 < g <= ``cap``. The stated accuracy of a receiver is its total error (white plus slow
+        wander); treating it all as white noise would oversmooth bends, so only the split and
+        the level below the bound are estimated.
+
+    Returns
+    -------
+    FitResult; ``model.var_scale`` multiplies ``base_var`` to give the white variance.
     """
     evals = 0
-    interval = float(np.median(np.concatenate([np.diff(t) for t, _, _ in pieces])))
-    med_base = float(np.median(np.concatenate([b for _, _, b in pieces])))
+    all_dt = np.concatenate([np.diff(t) for t, _, _ in pieces])
+    interval = float(np.median(all_dt))
+    fin = np.concatenate([b[np.isfinite(b)] for _, _, b in pieces])
+    med_base = float(np.median(fin))
     prepared = []
     for t, Y, b in pieces:
         prepared.append((t, Y - np.nanmean(Y, axis=0), b, float(t[-1] - t[0])))
 
     def unpack(theta):
-        i = 1
-        if estimate_scale:
-            s = scale_floor + float(np.exp(theta[i]))
-            i += 1
-        else:
-            s = scale_floor
-        wv = float(np.exp(theta[i])) if wander_tau_s else 0.0
-        return NoiseModel(float(np.exp(theta[0])), s, wv, wander_tau_s or 60.0)
+        a, b = float(np.clip(theta[1], -9.0, 9.0)), float(np.clip(theta[2], -9.0, 9.0))
+        if cap is None:
+            white = float(np.exp(theta[1]))
+            wander = white * float(np.exp(b))
+            return NoiseModel(float(np.exp(theta[0])), white, wander, wander_tau_s)
+        g, f = cap * _sigmoid(a), _sigmoid(b)
+        return NoiseModel(float(np.exp(theta[0])), g * f, g * (1.0 - f) * med_base, wander_tau_s)
 
     def negll(theta):
         nonlocal evals
@@ -425,11 +539,11 @@ def fit_noise(
         if np.any(np.abs(theta) > 90):
             return 1e300
         m0 = unpack(theta)
+        white = m0.var_scale * med_base
         total = 0.0
         for t, Y, b, span in prepared:
-            m = clamp_snap(m0, m0.var_scale * med_base, interval, span)
-            h = knot_spacing(m, m.var_scale * med_base, interval, span)
-            design = make_design(t, h)
+            m = clamp_snap(m0, white, interval, span)
+            design = make_design(t, knot_spacing(m, white, interval, span))
             for k in range(Y.shape[1]):
                 sysm = build_system(design, Y[:, k], b * m.var_scale, m)
                 try:
@@ -439,25 +553,22 @@ def fit_noise(
                 total += log_likelihood(sysm, U, solve_mean(sysm, U))
         return -total if np.isfinite(total) else 1e300
 
-    base = []
-    if estimate_scale:
-        base.append(np.log(max(start_var - scale_floor * med_base, 1e-3 * start_var) / med_base))
-    if wander_tau_s:
-        base.append(np.log(max(start_var, 1e-8)))
-    # Coarse grid over q first (the likelihood is flat far from its maximum), then refine.
+    if cap is None:
+        base = [np.log(max(start_var, 1e-8)), 0.0]
+    else:
+        f0 = float(np.clip(start_var / (cap * med_base), 0.05, 0.95))
+        base = [np.log(0.9 / 0.1), np.log(f0 / (1.0 - f0))]
+    # Coarse grid over q first (the likelihood is flat far from its maximum), then refine all.
     grid = np.arange(-16.0, 10.01, 1.0) * np.log(10.0)
     scores = [negll(np.array([g] + base)) for g in grid]
     theta0 = np.array([grid[int(np.argmin(scores))]] + base)
-    if len(theta0) == 1:
-        from scipy.optimize import minimize_scalar
-
-        r = minimize_scalar(lambda x: negll(np.array([x])), bounds=(theta0[0] - 2.5, theta0[0] + 2.5),
-                            method="bounded", options={"xatol": 1e-2})
-        best, ll = np.array([r.x]), -float(r.fun)
-    else:
-        r = minimize(negll, theta0, method="Nelder-Mead", options={"xatol": 1e-2, "fatol": 1e-2, "maxfev": 300})
-        best, ll = r.x, -float(r.fun)
-    return FitResult(unpack(best), ll, evals)
+    step = np.array([1.0, 1.0, 1.5])
+    simplex = np.vstack([theta0] + [theta0 + np.eye(3)[i] * step[i] for i in range(3)])
+    r = minimize(negll, theta0, method="Nelder-Mead",
+                 options={"xatol": 2e-2, "fatol": 1e-2, "maxfev": 250, "initial_simplex": simplex})
+    model = unpack(r.x)
+    at_cap = cap is not None and _sigmoid(float(r.x[1])) > 0.97
+    return FitResult(model, -float(r.fun), evals, at_cap)
 
 
 # --------------------------------------------------------------------------------------------
@@ -467,30 +578,34 @@ def fit_noise(
 
 @dataclass
 class AxisGroup:
-    """Posterior of some axes (east+north, or up) on their own knot grid.
+    """Smoothed axes (east+north, or up) on their own knot grid.
 
-    Knots sit at ``t0 + k h``; ``states`` (K, A, 4) is the posterior mean of (p, v, a, j) per axis
-    in SI units; ``factors`` per axis (U, dim) for posterior samples.
+    Knots sit at ``t0 + k h``; ``states`` (K, A, 4) is the estimate of (p, v, a, j) per axis in
+    SI units. ``systems``/``factors`` per axis, ``white_var`` (n,) and ``model`` are kept for
+    the sampling-error draws.
     """
 
     axes: tuple[int, ...]
     t0: float
     h: float
     states: FloatArray
+    systems: list
     factors: list
+    white_var: FloatArray
+    model: NoiseModel
 
-    def samples(self, n_samples: int, rng: np.random.Generator) -> FloatArray:
-        """Posterior samples of the knot states, (n_samples, K, A, 4), SI units."""
+    def draws(self, n_samples: int, rng: np.random.Generator) -> FloatArray:
+        """Estimate plus sampling error of the knot states, (n_samples, K, A, 4), SI units."""
         out = np.empty((n_samples,) + self.states.shape)
         conv = self.h ** -np.arange(N_PATH)
-        for a, (U, dim) in enumerate(self.factors):
-            out[:, :, a, :] = draw_samples(U, dim, n_samples, rng)[:, :, :N_PATH] * conv
+        for a, (sysm, U) in enumerate(zip(self.systems, self.factors)):
+            out[:, :, a, :] = noise_draws(sysm, U, self.white_var, self.model, n_samples, rng)[:, :, :N_PATH] * conv
         return out + self.states[None]
 
 
 @dataclass
 class Smoothed:
-    """Posterior of one stretch of fixes: east/north on one knot grid, up on another.
+    """Estimate of one stretch of fixes: east/north on one knot grid, up on another.
 
     ``groups`` holds the smoothed axis groups (up is absent for a log without heights: it then
     reads as 0 with zero derivatives). ``weight_h``/``weight_v`` are the final robust weights of
@@ -502,22 +617,19 @@ class Smoothed:
     weight_v: FloatArray
 
     def at(self, t: FloatArray) -> FloatArray:
-        """Posterior mean (p, v, a, j) per axis at times ``t``, (n, 3, 4), SI units."""
+        """Estimated (p, v, a, j) per axis at times ``t``, (n, 3, 4), SI units."""
         out = np.zeros((len(t), 3, N_PATH))
         for g in self.groups:
             out[:, list(g.axes), :] = interpolate_states(g.states, g.t0, g.h, t)
         return out
 
     def draw(self, n_samples: int, rng: np.random.Generator) -> list[FloatArray]:
-        """Posterior samples of every group's knot states (see ``samples_at``)."""
-        return [g.samples(n_samples, rng) for g in self.groups]
+        """Knot states of ``n_samples`` repeated-noise estimates for every group (see
+        ``samples_at``)."""
+        return [g.draws(n_samples, rng) for g in self.groups]
 
     def samples_at(self, drawn: list[FloatArray], t: FloatArray) -> FloatArray:
-        """Sampled (p, v, a, j) at times ``t`` from ``draw`` output, (n_samples, n, 3, 4).
-
-        Between knots the samples are Hermite-interpolated (the small bridge variance between
-        knots spaced a quarter of the smoothing scale apart is neglected).
-        """
+        """(p, v, a, j) at times ``t`` from ``draw`` output, (n_samples, n, 3, 4)."""
         ns = drawn[0].shape[0] if drawn else 0
         out = np.zeros((ns, len(t), 3, N_PATH))
         for g, d in zip(self.groups, drawn):
@@ -525,19 +637,18 @@ class Smoothed:
         return out
 
 
-def _smooth_group(
-    t: FloatArray, Y: FloatArray, var: FloatArray, w: FloatArray, m: NoiseModel, design: Design
-) -> tuple[list[FloatArray], list, FloatArray]:
-    means, factors, fits = [], [], []
+def _smooth_group(Y: FloatArray, var: FloatArray, w: FloatArray, m: NoiseModel, design: Design):
+    systems, factors, means, fits = [], [], [], []
     v = np.where(w > 0, var / np.maximum(w, 1e-12), np.inf)
     for a in range(Y.shape[1]):
         sysm = build_system(design, Y[:, a], v, m)
         U = factor(sysm)
         x = solve_mean(sysm, U)
+        systems.append(sysm)
+        factors.append(U)
         means.append(x)
-        factors.append((U, m.dim))
         fits.append(fitted(sysm, x))
-    return means, factors, np.column_stack(fits)
+    return systems, factors, means, np.column_stack(fits)
 
 
 def smooth_stretch(
@@ -547,16 +658,19 @@ def smooth_stretch(
     base_var_v: FloatArray,
     model_h: NoiseModel,
     model_v: NoiseModel | None,
+    screened_h: NDArray[np.bool_] | None = None,
+    screened_v: NDArray[np.bool_] | None = None,
     robust_iterations: int = 3,
     huber_c: float = 2.5,
     reject_sigma: float = 6.0,
 ) -> Smoothed:
     """Smooth one stretch of fixes (strictly increasing ``t``) on all three axes.
 
-    ``model_v`` None means no heights. Fixes are re-weighted ``robust_iterations`` times with the
-    Huber weight min(1, c/d) of the standardised residual d (2D for east/north, 1D for up) and
-    weight 0 beyond ``reject_sigma``; a fix rejected horizontally is rejected in height too
-    (multipath that throws a fix sideways spoils its height as well).
+    ``model_v`` None means no heights. ``screened_*`` (from ``screen_outliers``) start with
+    weight 0. Fixes are then re-weighted ``robust_iterations`` times with the Huber weight
+    min(1, c/d) of the standardised residual d (2D for east/north, 1D for up) and weight 0 beyond
+    ``reject_sigma``; a fix rejected horizontally is rejected in height too (multipath that
+    throws a fix sideways spoils its height as well).
     """
     n = len(t)
     interval = float(np.median(np.diff(t))) if n > 1 else 1.0
@@ -569,30 +683,34 @@ def smooth_stretch(
     prepared = []
     for axes, m, bvar in specs:
         var = bvar * m.var_scale
-        m = clamp_snap(m, float(np.median(var)), interval, span)
-        prepared.append((axes, m, var, make_design(t, knot_spacing(m, float(np.median(var)), interval, span))))
-    w_h = np.ones(n)
-    w_v = np.ones(n) if model_v is not None else np.zeros(n)
+        white = float(np.median(var[np.isfinite(var)]))
+        m = clamp_snap(m, white, interval, span)
+        prepared.append((axes, m, var, make_design(t, knot_spacing(m, white, interval, span))))
+    w_h = np.ones(n) if screened_h is None else (~screened_h).astype(float)
+    w_v = np.zeros(n)
+    if model_v is not None:
+        w_v = np.ones(n) if screened_v is None else (~screened_v).astype(float)
+        w_v = np.where(w_h == 0, 0.0, w_v)
     for it in range(robust_iterations + 1):
         results = []
         for axes, m, var, design in prepared:
             w = w_h if axes[0] < 2 else w_v
-            results.append(_smooth_group(t, Y[:, list(axes)], var, w, m, design))
+            results.append(_smooth_group(Y[:, list(axes)], var, w, m, design))
         if it == robust_iterations:
             break
-        res_h = Y[:, :2] - results[0][2]
+        res_h = Y[:, :2] - results[0][3]
         dh = np.sqrt(np.sum(res_h**2, axis=1) / (2.0 * prepared[0][2]))
         w_h = _huber(np.where(np.isfinite(dh), dh, 0.0), huber_c, reject_sigma)
         if model_v is not None:
-            dv = np.abs(Y[:, 2] - results[1][2][:, 0]) / np.sqrt(prepared[1][2])
+            dv = np.abs(Y[:, 2] - results[1][3][:, 0]) / np.sqrt(prepared[1][2])
             w_v = _huber(np.where(np.isfinite(dv), dv, 0.0), huber_c, reject_sigma)
             w_v = np.where(w_h == 0, 0.0, w_v)
     groups = []
-    for (axes, m, var, design), (means, factors, _) in zip(prepared, results):
+    for (axes, m, var, design), (systems, factors, means, _) in zip(prepared, results):
         conv = design.h ** -np.arange(N_PATH)
         states = np.stack([mm[:, :N_PATH] * conv for mm in means], axis=1)
         states[:, :, 0] += offset[list(axes)]
-        groups.append(AxisGroup(axes, design.t0, design.h, states, factors))
+        groups.append(AxisGroup(axes, design.t0, design.h, states, systems, factors, var, m))
     return Smoothed(groups, w_h, w_v)
 
 

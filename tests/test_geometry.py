@@ -50,8 +50,10 @@ def test_rtk_helix_curvature_and_torsion_match_closed_form():
     assert np.nanmedian(np.abs(p.torsion_per_m[core] / t_true - 1)) < 0.02
 
 
-@pytest.mark.xfail(strict=True, reason="known defect: p95 |tau| is ~15 % of kappa on dual-frequency heights; "
-                   "target 5 % not met yet")
+@pytest.mark.xfail(strict=True, reason="known shortfall: p95 |tau| is 15-27 % of kappa on dual-frequency "
+                   "heights (target 5 %); horizontal and vertical are smoothed with their own strengths, "
+                   "whose different attenuation of one bend leaves a twist, and one shared strength lets "
+                   "the 1.7x vertical noise through (measured 120-200 %)")
 def test_plane_curve_has_near_zero_torsion_despite_height_noise():
     # Textbook fact: a plane curve has tau = 0. Issue target: 95th percentile |tau| <= 5 % of the
     # typical kappa.
@@ -112,7 +114,6 @@ def test_curvature_band_covers_the_truth_at_about_its_stated_rate():
     assert 0.45 <= cover_k <= 0.92
 
 
-@pytest.mark.xfail(strict=True, reason="known defect: the torsion band is too wide (covers ~96 %)")
 def test_torsion_band_covers_the_truth_at_about_its_stated_rate():
     # Same set-up as above, for torsion.
     a, c = 40.0, 6.0
@@ -125,3 +126,36 @@ def test_torsion_band_covers_the_truth_at_about_its_stated_rate():
         sel = np.flatnonzero((p.chainage_m > 40) & (p.chainage_m < traj.length_m - 40))[::25]
         hits.append(np.abs(p.torsion_per_m[sel] - t_true) <= p.torsion_sd_per_m[sel])
     assert 0.45 <= np.mean(np.concatenate(hits)) <= 0.92
+
+
+def test_slow_wander_on_a_straight_is_not_read_as_a_bend():
+    # Correlated receiver error must not become bends (REFERENCES.md: likelihood undersmooths
+    # with slow wander). A straight driven at 100 km/h with phone-grade 3 m wander (60 s) must
+    # never look tighter than the minimum design radius for that speed: R = V^2/(127 (e+f)) =
+    # 393.7 m at e = 0.08, f = 0.12 (Ethiopian Roads Authority manual 2002, ch. 8 worked example).
+    curve = S.alignment_curve([("tangent", 3000.0, 0.0)], grades=[(3000.0, 0.02, 0.02)])
+    traj = S.sample_path(curve, speed_mps=100 / 3.6, rate_hz=1.0)
+    for seed in range(2):
+        f = S.add_gnss_error(traj, "phone", np.random.default_rng(seed), white_m=0.3)
+        p = profile_of(f)
+        assert np.min(p.radius_m) > 393.7
+
+
+def test_multipath_outliers_duplicates_and_outage_do_not_spoil_an_uncleaned_log():
+    # Regression: 1 % multipath jumps of 15-45 m once drove the likelihood to a path through them
+    # (kappa error 97 %, length +160 %). build_profile must hold up even on a raw, uncleaned log.
+    # Issue targets: no worse than 1.5x the clean case; chainage within 0.5 % of the true length.
+    traj = S.road_alignment()
+    rng = np.random.default_rng(2024)
+    clean = S.add_gnss_error(traj, "dual", rng)
+    bad = S.add_outliers(clean, 0.01, 30.0, rng)
+    bad = S.duplicate_fixes(S.add_outage(bad, 20.0, 5.0), 0.01, rng)
+
+    def kappa_error(p):
+        kt = traj.truth_at_chainage(p.chainage_m)["curvature_per_m"]
+        arc = kt > 0.5 * kt.max()
+        return np.median(np.abs(p.curvature_per_m[arc] / kt[arc] - 1))
+
+    p_clean, p_bad = profile_of(clean), profile_of(bad)
+    assert kappa_error(p_bad) <= 1.5 * kappa_error(p_clean)
+    assert abs(p_bad.settings["path_length_m"] / traj.length_m - 1) < 0.005

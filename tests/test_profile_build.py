@@ -29,8 +29,6 @@ def test_identical_fixes_give_an_empty_profile_with_a_message():
     assert len(p) == 0 and any("skipped" in m for m in p.messages)
 
 
-@pytest.mark.xfail(strict=True, reason="known defect: stations just outside a stop reach kappa ~0.6/m; "
-                   "the fixed 0.2 m/s stop threshold is too low for dual-frequency noise")
 def test_stop_in_the_middle_does_not_blow_up_curvature():
     # In time, kappa = |v x a|/|v|^3 blows up at standstill (REFERENCES.md); stops must be masked.
     traj = S.sample_path(S.helix_curve(30.0, 0.0, 1.0), speed_mps=3.0, rate_hz=2.0, stops=[(90.0, 60.0)])
