@@ -265,13 +265,11 @@ def align(imu: ImuLog, t_g: FloatArray, enu_g: FloatArray, var_h: FloatArray, sp
         w = ti < t0 + static_s
         f_mean = fa[w].mean(axis=0)
         bg0 = fg[w].mean(axis=0)
-        n_st = max(int(w.sum()), 1)
         bg_sd = np.full(3, spec.gyro_noise_radps_rthz / np.sqrt(static_s) + spec.gyro_bias_walk_radps_rts)
         start = t_g <= t0 + static_s
         p0 = np.nanmean(enu_g[start], axis=0) if start.any() else enu_g[0]
         v0, v_sd = np.zeros(3), 0.05
         msgs.append(f"alignment: static start of {static_s:.1f} s (level from gravity, gyro bias from the mean rate)")
-        del n_st
     else:
         w = ti < t0 + 1.0
         f_mean = fa[w].mean(axis=0)
