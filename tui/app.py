@@ -34,38 +34,40 @@ def limits_text(lim: Limits) -> str:
     """Compact description of the active limits for the header line."""
     parts = []
     if lim.sharp_radius_m:
-        parts.append(f"R<{fmt.length(lim.sharp_radius_m)}")
+        parts.append(f"R<{fmt.short(lim.sharp_radius_m)} m")
     if lim.twist_per_m:
-        parts.append(f"|τ|>{fmt.sig(lim.twist_per_m)}/m")
+        parts.append(f"|τ|>{fmt.short(lim.twist_per_m)}/m")
     if lim.design_on:
-        parts.append(f"design {lim.design_speed_kmh:g} km/h (R<{lim.design_radius_m:.0f} m, advisory)")
-    return "limits " + (" ".join(parts) if parts else "none (l sets)")
+        parts.append(f"{lim.design_speed_kmh:g} km/h: plan R<{lim.design_radius_m:.0f} m (advisory)")
+    return ", ".join(parts) if parts else "no limits (l sets them)"
 
 
 class TrackApp(App):
     """Viewer for one log. Give ``log_path`` (loaded in a worker) or a ready ``profile``."""
 
     TITLE = "trackframe"
+    ENABLE_COMMAND_PALETTE = False
     CSS = """
     Screen { layout: vertical; }
-    #header { height: 1; background: $boost; text-style: bold; }
+    #header { height: auto; max-height: 2; background: $boost; text-style: bold; }
     #body { height: 1fr; }
     #left { width: 1fr; }
     #right { width: 34; border-left: vkey $surface-lighten-2; }
-    #sections { height: 6; border-top: hkey $surface-lighten-2; }
+    #sections { height: 5; }
+    #sections-title { height: 1; background: $boost; }
     #status { height: 1; background: $boost; }
     """
 
     BINDINGS = [
-        Binding("right", "step(1)", "step", key_display="←→"),
+        Binding("right", "step(1)", "move", key_display="←→"),
         Binding("left", "step(-1)", "step back", show=False),
-        Binding("pagedown,rightsquarebracket", "page(1)", "page", key_display="PgDn/PgUp"),
+        Binding("pagedown,rightsquarebracket", "page(1)", "page", show=False),
         Binding("pageup,leftsquarebracket", "page(-1)", "page back", show=False),
         Binding("home,less_than_sign", "home", "start", show=False),
         Binding("end,greater_than_sign", "end", "end", show=False),
-        Binding("plus,equals_sign", "zoom_in", "zoom in", key_display="+/-"),
+        Binding("plus,equals_sign", "zoom_in", "zoom", key_display="+-"),
         Binding("minus", "zoom_out", "zoom out", show=False),
-        Binding("n", "next_section", "next flag"),
+        Binding("n", "next_section", "next flag", key_display="n/p"),
         Binding("p", "previous_section", "prev flag", show=False),
         Binding("m", "mark", "mark"),
         Binding("t", "note", "note", show=False),
@@ -134,12 +136,13 @@ class TrackApp(App):
         with Horizontal(id="body"):
             with Vertical(id="left"):
                 yield ChartPanel(id="charts")
+                yield Static("sections", id="sections-title")
                 yield SectionList(id="sections")
             with Vertical(id="right"):
                 yield PlanView(id="plan")
                 yield Readout(id="readout")
         yield Static("", id="status")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         self.timings["mount_s"] = time.perf_counter() - self._t_start
@@ -157,12 +160,10 @@ class TrackApp(App):
         try:
             right = self.query_one("#right")
             sections = self.query_one("#sections")
-            readout = self.query_one("#readout")
         except Exception:
             return
         right.styles.width = 34 if w < 110 else min(48, w // 3)
-        sections.styles.height = 6 if h < 34 else min(12, h // 4)
-        readout.styles.height = 13 if w >= 110 else 14
+        sections.styles.height = 5 if h < 34 else min(12, h // 4)
 
     # -- loading (worker thread) ---------------------------------------------------------------
 
@@ -264,11 +265,15 @@ class TrackApp(App):
         self.query_one(Readout).refresh()
 
     def _sections_changed(self) -> None:
-        self.query_one(SectionList).show(self.model.sections)
+        secs = self.model.sections
+        self.query_one(SectionList).show(secs)
+        n_auto = len(self.model.auto_sections)
+        self.query_one("#sections-title", Static).update(
+            f"sections: {n_auto} flagged, {len(secs) - n_auto} marked (s, enter)")
         self._header()
         self.query_one(ChartPanel).refresh()
         self.query_one(PlanView).refresh()
-        self.query_one(Readout).refresh()
+        self.query_one(Readout).refresh(layout=True)
 
     # -- cursor actions ------------------------------------------------------------------------
 

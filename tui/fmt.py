@@ -26,6 +26,11 @@ def chainage_exact(m: float) -> str:
     return NA if not finite(m) else f"{m:,.1f} m".replace(",", " ")
 
 
+def short(x: float) -> str:
+    """Compact limit value: ``6``, ``0.05``, ``229``."""
+    return NA if not finite(x) else f"{x:.3g}"
+
+
 def sig(x: float, digits: int = 3) -> str:
     """Short number with ``digits`` significant figures (no unit)."""
     if not finite(x):
@@ -66,12 +71,12 @@ def duration(seconds: float) -> str:
     return f"{s // 3600}h{s % 3600 // 60:02d}m{s % 60:02d}s"
 
 
-def clock(t: float) -> str:
-    """UNIX seconds -> ``2026-11-20 10:05:12.3Z``."""
+def clock(t: float, date: bool = True) -> str:
+    """UNIX seconds -> ``2026-11-20 10:05:12.3Z`` (UTC; without the date: ``10:05:12.3Z``)."""
     if not finite(t):
         return NA
     dt = datetime.fromtimestamp(t, tz=timezone.utc)
-    return dt.strftime("%Y-%m-%d %H:%M:%S.") + f"{dt.microsecond // 100_000}Z"
+    return dt.strftime("%Y-%m-%d %H:%M:%S." if date else "%H:%M:%S.") + f"{dt.microsecond // 100_000}Z"
 
 
 def signed(x: float, fmt: str) -> str:

@@ -223,6 +223,13 @@ class ViewModel:
         order = np.argsort(self._auto_starts, kind="stable")
         self._auto_sorted = [self._auto[k] for k in order]
         self._auto_starts = self._auto_starts[order]
+        self._by_kind = []
+        for kind in AUTO_KINDS:
+            secs = sorted((s for s in self._auto if s.kind == kind), key=lambda s: s.start_chainage_m)
+            if secs:
+                starts = np.array([s.start_chainage_m for s in secs])
+                ends = np.array([s.end_chainage_m for s in secs])
+                self._by_kind.append((starts, ends, secs))
         self.coverage: dict[str, PrefixCount] = {}
         for kind in (*AUTO_KINDS, KIND_MARKED):
             secs = [s for s in self._sections if s.kind == kind]
@@ -266,9 +273,18 @@ class ViewModel:
         self.goto_centred(self.section_index(section))
 
     def sections_at_cursor(self) -> list[Section]:
+        """Sections holding the cursor station. Automatic sections of one kind never overlap, so
+        a binary search per kind finds them (cost independent of the number of sections); hand
+        marks may overlap and are few, so they are scanned."""
         here = self.chainage()
         tol = 0.5 * self.profile.step_m
-        return [s for s in self._sections if s.start_chainage_m - tol <= here <= s.end_chainage_m + tol]
+        out = []
+        for starts, ends, secs in self._by_kind:
+            k = int(np.searchsorted(starts, here + tol, side="right")) - 1
+            if k >= 0 and ends[k] >= here - tol:
+                out.append(secs[k])
+        out += [s for s in self._marked if s.start_chainage_m - tol <= here <= s.end_chainage_m + tol]
+        return sort_sections(out)
 
     # -- marks ---------------------------------------------------------------------------------
 

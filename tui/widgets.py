@@ -75,7 +75,7 @@ STYLES = {
 }
 
 #: Why torsion is undefined, short enough for the readout.
-TORSION_SHORT = {TORSION_LOW_CURVATURE: "κ too small: no osculating plane", TORSION_NO_DATA: "no data here"}
+TORSION_SHORT = {TORSION_LOW_CURVATURE: "κ too small", TORSION_NO_DATA: "no data (gap)"}
 
 HEIGHT_SHORT = {HEIGHT_ELLIPSOID: "ellipsoidal", HEIGHT_MSL: "above MSL", HEIGHT_NONE: "none", "unknown": "ref. unknown"}
 
@@ -138,6 +138,7 @@ class ChartPanel(Widget):
     ChartPanel { height: 1fr; }
     """
     MARGIN = 8
+    can_focus = True
 
     def __init__(self, **kw):
         super().__init__(**kw)
@@ -236,16 +237,16 @@ class ChartPanel(Widget):
                 r_hi = np.where(np.isfinite(lo) & ~np.isfinite(r_hi), y1, r_hi)
                 b_hi = np.where(np.isfinite(blo) & ~np.isfinite(b_hi), y1, b_hi)
                 grid = chart_grid(r_lo, r_hi, nrows, y0, y1, b_lo, b_hi, refs=refs)
-                title = "radius R, m (log scale; top = straighter)  ░ ±1σ"
+                title = "radius R, m, log scale  ░ ±1σ"
                 if lim.sharp_radius_m:
-                    title += f"  ┄ sharp limit {fmt.length(lim.sharp_radius_m)}"
+                    title += f"  ┄ limit {fmt.length(lim.sharp_radius_m)}"
                 return title, grid, fmt.length(10**y1).replace(" (straight)", ""), fmt.length(10**y0)
             y0, y1 = y_range(lo, hi, include_zero=True, extra=(sharp,) if sharp else ())
             refs = ((0.0, ZERO_CHAR, AXIS),) + (((sharp, LIMIT_CHAR, LIMIT),) if sharp else ())
             grid = chart_grid(lo, hi, nrows, y0, y1, blo, bhi, refs=refs)
             title = "curvature κ, 1/m  ░ ±1σ"
             if sharp:
-                title += f"  ┄ sharp limit (R {fmt.length(lim.sharp_radius_m)})"
+                title += f"  ┄ limit 1/{fmt.length(lim.sharp_radius_m)}"
             return title, grid, fmt.sig(y1), fmt.sig(y0)
         if kind == "tors":
             lo, hi = m.tau.vmin.query(a, b), m.tau.vmax.query(a, b)
@@ -257,9 +258,9 @@ class ChartPanel(Widget):
             if tw:
                 refs += ((tw, LIMIT_CHAR, LIMIT), (-tw, LIMIT_CHAR, LIMIT))
             grid = chart_grid(lo, hi, nrows, y0, y1, blo, bhi, gap=gap, refs=refs)
-            title = "torsion τ, 1/m  ░ ±1σ  · undefined (no curvature)"
+            title = "torsion τ, 1/m  ░ ±1σ  · undefined"
             if tw:
-                title += f"  ┄ ±{fmt.sig(tw)}"
+                title += f"  ┄ limit ±{fmt.sig(tw)}"
             return title, grid, fmt.sig(y1), fmt.sig(y0)
         if kind == "elev":
             lo, hi = m.height.vmin.query(a, b), m.height.vmax.query(a, b)
@@ -459,7 +460,7 @@ class PlanView(Widget):
         self._grid, self._transform = grid, transform
         cell_m = 2 * transform[2]
         mode = "window" if self.follow else "whole track"
-        title = f"plan, {mode}  N↑  1 col ≈ {fmt.length(cell_m)}  ○ start ● cursor"
+        title = f"plan ({mode}) N↑ 1 col≈{fmt.length(cell_m)} ○start ●cursor"
         base = self.rich_style
         self._rows = [Strip([Segment(title[:w].ljust(w), base + Style(bold=True))], w)] + grid_strips(grid, base)
 
@@ -519,7 +520,7 @@ class Readout(Widget):
     """Values at the cursor, one per line, each with its unit; "n/a" with a reason when undefined."""
 
     DEFAULT_CSS = """
-    Readout { height: 13; }
+    Readout { height: auto; }
     """
 
     @property
@@ -540,12 +541,12 @@ class Readout(Widget):
         if math.isfinite(t):
             tau = f"{fmt.sig(t)} ± {fmt.sig(ts, 2)} 1/m"
         else:
-            tau = f"n/a ({TORSION_SHORT.get(v['torsion_reason'], 'undefined')})"
+            tau = f"n/a: {TORSION_SHORT.get(v['torsion_reason'], 'undefined')}"
         lat_acc = f"{v['lateral_accel_mps2']:.2f} m/s²" if math.isfinite(v["lateral_accel_mps2"]) else "n/a (no time)"
         h = f"{v['height_m']:.1f} m {HEIGHT_SHORT.get(p.height_ref, p.height_ref)}" if math.isfinite(v["height_m"]) else "n/a (no height)"
         t0 = p.time_s[0]
         elapsed = v["time_s"] - t0 if math.isfinite(t0) else math.nan
-        tail = f" (+{fmt.duration(elapsed)})" if math.isfinite(elapsed) else ""
+        tail = f" +{fmt.duration(elapsed)}" if math.isfinite(elapsed) else ""
         here = m.sections_at_cursor()
         lines = [
             f"at     {fmt.chainage_exact(v['chainage_m'])}  #{v['index']}",
@@ -557,7 +558,7 @@ class Readout(Widget):
             f"κ      {kappa}",
             f"τ      {tau}",
             f"a_lat  {lat_acc}",
-            f"time   {fmt.clock(v['time_s'])}{tail}",
+            f"time   {fmt.clock(v['time_s'], date=self.size.width >= 40)}{tail}",
             f"in     {' '.join(s.id for s in here) if here else '—'}  seg {v['segment']}",
         ]
         lim = m.limits
@@ -596,12 +597,8 @@ def section_label(s: Section) -> str:
 class SectionList(OptionList):
     """Automatic and marked sections along the chainage; Enter (or a click) jumps to one."""
 
-    DEFAULT_CSS = """
-    SectionList { height: 6; border: none; padding: 0; }
-    """
-
     def __init__(self, **kw):
-        super().__init__(**kw)
+        super().__init__(markup=False, compact=True, **kw)
         self.sections: list[Section] = []
 
     def show(self, sections: list[Section]) -> None:
