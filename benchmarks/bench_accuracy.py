@@ -1,65 +1,151 @@
 """Accuracy benchmark: ours vs the naive cubic-spline baseline on closed-form cases.
 
-Run: /tmp/v/bin/python benchmarks/bench_accuracy.py   (prints one table)
+Run:  /tmp/v/bin/python benchmarks/bench_accuracy.py [--quick] [--seed N]
+Prints one table. Every case runs the product's own pipeline: synthetic fixes -> Track ->
+survey.clean.clean_track (sort, duplicates, gap segments, suspect jumps) -> local frame ->
+build_profile. Truth comes from the closed forms in survey.synthetic (helix: kappa = a/(a^2+c^2),
+tau = c/(a^2+c^2), do Carmo 1976; clothoids from scipy.special.fresnel; REFERENCES.md).
+
+Metrics (all on "curved parts": stations whose true kappa exceeds half the case's maximum):
+  k_med, k_rms   median / RMS relative error of kappa
+  R_med          median relative error of the radius 1/kappa on circular-arc cores (true kappa
+                 within 1 % of its maximum, without 20 m -- or a quarter of a short arc -- at
+                 either end)
+  t_med          median relative error of tau (helix only)
+  tp95/k         95th percentile |tau| over the typical true kappa (plane loop: tau must vanish)
+  len            relative error of the total path length
+Baseline columns (B_*) use the same metrics on the per-axis cubic smoothing spline (GCV) at
+the fix times. "x base" is baseline error / our error for the case's headline metric (>= 2 is the
+issue's target). "pass" checks the issue's target for that case; corrupted cases are checked
+against 1.5x their clean twin.
 """
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
 
 import numpy as np
 
 from baseline import baseline_kappa_tau
 from survey import synthetic as S
+from survey.clean import clean_track
 from survey.frame import LocalFrame
 from survey.profile_build import build_profile
 
-FRAME = LocalFrame.enu(46.5, 7.6, 800.0)
+FRAME = LocalFrame.enu(46.5, 7.6, 800.0)  # invented site
 
 
-def ours(f):
-    tr = S.fixes_to_track(f, FRAME.inverse)
-    e, n, u = FRAME.forward(tr.lat_deg, tr.lon_deg, tr.height_m)
-    return build_profile(tr, np.column_stack([e, n, u]), FRAME)
+def ours(fixes):
+    track, _ = clean_track(S.fixes_to_track(fixes, FRAME.inverse))
+    e, n, u = FRAME.forward(track.lat_deg, track.lon_deg, track.height_m)
+    return build_profile(track, np.column_stack([e, n, u]), FRAME)
 
 
-def rel(a, b):
-    return np.abs(a / b - 1)
+def _rel(est, true):
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.abs(est / true - 1.0)
 
 
-def case(name, traj, grade, rng, corrupt=False):
+def metrics(kappa, tau, k_true, t_true, chainage, has_torsion):
+    """Metric dict for estimates at points with known truth (NaN where not applicable)."""
+    kmax = np.max(k_true)
+    curved = k_true > 0.5 * kmax
+    core = np.abs(k_true / kmax - 1.0) < 0.01
+    # drop the ends of every run of arc stations (transitions blur into them): 20 m, or a
+    # quarter of the arc when it is shorter than 80 m (tight switchbacks)
+    edges = np.flatnonzero(np.diff(np.r_[0, core.astype(int), 0]))
+    keep = np.zeros_like(core)
+    for a, b in zip(edges[::2], edges[1::2]):
+        margin = min(20.0, 0.25 * (chainage[b - 1] - chainage[a]))
+        keep[a:b] = (chainage[a:b] > chainage[a] + margin) & (chainage[a:b] < chainage[b - 1] - margin)
+    rk = _rel(kappa[curved], k_true[curved])
+    with np.errstate(divide="ignore"):
+        r_err = _rel(1.0 / kappa[keep], 1.0 / k_true[keep])
+    out = {
+        "k_med": float(np.median(rk)),
+        "k_rms": float(np.sqrt(np.mean(rk**2))),
+        "R_med": float(np.median(r_err)) if keep.any() else np.nan,
+        "t_med": float(np.nanmedian(_rel(tau[curved], t_true[curved]))) if has_torsion else np.nan,
+        "tp95/k": float(np.nanpercentile(np.abs(tau), 95) / np.median(k_true[curved]))
+        if np.isfinite(tau).any() else np.nan,
+    }
+    return out
+
+
+def run_case(traj, grade, rng, corrupt=False):
     f = S.add_gnss_error(traj, grade, rng)
     if corrupt:
         f = S.add_outliers(f, 0.01, 30.0, rng)
-        f = S.duplicate_fixes(S.add_outage(f, 0.3 * (traj.time_s[-1] - traj.time_s[0]), 5.0), 0.01, rng)
+        f = S.add_outage(f, 0.3 * (traj.time_s[-1] - traj.time_s[0]), 5.0)
+        f = S.duplicate_fixes(f, 0.01, rng)
+    t0 = time.perf_counter()
     p = ours(f)
+    secs = time.perf_counter() - t0
     truth = traj.truth_at_chainage(p.chainage_m)
-    kt, tt = truth["curvature_per_m"], truth["torsion_per_m"]
-    curved = kt > 0.5 * np.max(kt)
+    has_tau = bool(np.nanmax(np.abs(traj.torsion_per_m), initial=0.0) > 1e-9)
+    m = metrics(p.curvature_per_m, p.torsion_per_m, truth["curvature_per_m"], truth["torsion_per_m"],
+                p.chainage_m, has_tau)
+    m["len"] = abs(p.settings["path_length_m"] / traj.length_m - 1.0)
     tb, kb, taub = baseline_kappa_tau(f.time_s, f.enu_m)
     sb = np.interp(tb, traj.time_s, traj.chainage_m)
     trb = traj.truth_at_chainage(sb)
-    cb = trb["curvature_per_m"] > 0.5 * np.max(trb["curvature_per_m"])
-    row = {
-        "kappa_med": np.median(rel(p.curvature_per_m[curved], kt[curved])),
-        "kappa_rms": np.sqrt(np.mean(rel(p.curvature_per_m[curved], kt[curved]) ** 2)),
-        "tau_med": np.nanmedian(rel(p.torsion_per_m[curved], tt[curved])) if np.nanmax(np.abs(tt)) > 0 else np.nan,
-        "tau_p95_over_kappa": np.nanpercentile(np.abs(p.torsion_per_m), 95) / np.median(kt[curved]),
-        "len_err": abs(p.settings["path_length_m"] / traj.length_m - 1),
-        "b_kappa_med": np.median(rel(kb[cb], trb["curvature_per_m"][cb])),
-        "b_tau_med": np.nanmedian(rel(taub[cb], trb["torsion_per_m"][cb])) if np.nanmax(np.abs(tt)) > 0 else np.nan,
-        "b_tau_p95_over_kappa": np.nanpercentile(np.abs(taub), 95) / np.median(kt[curved]),
-    }
-    print(f"{name:28s} " + " ".join(f"{row[k]:9.4f}" for k in row))
+    b = metrics(kb, taub, trb["curvature_per_m"], trb["torsion_per_m"], sb, has_tau)
+    m.update({f"B_{k}": v for k, v in b.items()})
+    m["secs"] = secs
+    return m
+
+
+# (label, trajectory factory, grade, corrupt, targets {metric: limit}, headline metric)
+def cases(quick: bool):
+    hx = lambda: S.helix(50, 5, 10, 10, 3)  # noqa: E731
+    rows = [
+        ("helix RTK 10Hz", hx, "rtk", False, {"k_med": 0.005, "t_med": 0.02}, "t_med"),
+        ("helix phone 10Hz", hx, "phone", False, {"k_med": 0.04, "t_med": 0.08}, "t_med"),
+        ("helix phone corrupted", hx, "phone", True, "helix phone 10Hz", "t_med"),
+        ("road dual 10Hz 80km/h", S.road_alignment, "dual", False, {"R_med": 0.03, "k_rms": 0.04}, "R_med"),
+        ("road dual corrupted", S.road_alignment, "dual", True, "road dual 10Hz 80km/h", "R_med"),
+        ("road phone 1Hz", lambda: S.road_alignment(rate_hz=1.0), "phone", False,
+         {"R_med": 0.08, "k_rms": 0.15}, "R_med"),
+        ("plane loop dual 5Hz", S.plane_loop, "dual", False, {"tp95/k": 0.05}, "tp95/k"),
+        ("switchbacks R8 phone 1Hz", S.switchbacks, "phone", False, {"R_med": 0.15}, "R_med"),
+        ("switchbacks R8 dual 1Hz", S.switchbacks, "dual", False, {"R_med": 0.15}, "R_med"),
+    ]
+    if quick:
+        keep = {"helix RTK 10Hz", "road dual 10Hz 80km/h", "road dual corrupted", "plane loop dual 5Hz"}
+        rows = [r for r in rows if r[0] in keep]
+    return rows
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="four cases only")
+    ap.add_argument("--seed", type=int, default=2024)
+    args = ap.parse_args(argv)
+    rng = np.random.default_rng(args.seed)
+    cols = ["k_med", "k_rms", "R_med", "t_med", "tp95/k", "len", "B_k_med", "B_R_med", "B_t_med", "B_tp95/k"]
+    print(f"{'case':26s} " + " ".join(f"{c:>8s}" for c in cols) + f" {'x base':>7s} {'secs':>5s}  target -> pass")
+    done: dict[str, dict] = {}
+    for label, make, grade, corrupt, target, head in cases(args.quick):
+        m = run_case(make(), grade, rng, corrupt)
+        done[label] = m
+        if isinstance(target, str):  # corrupted twin: no worse than 1.5x the clean case
+            twin = done.get(target)
+            checks = {k: 1.5 * twin[k] for k in ("k_med", head)} if twin else {}
+            checks["len"] = 0.005
+        else:
+            checks = dict(target)
+            checks["len"] = 0.005
+        ok = all(np.isfinite(m[k]) and m[k] <= v for k, v in checks.items())
+        ratio = m[f"B_{head}"] / m[head] if m[head] > 0 else np.inf
+        tgt = ", ".join(f"{k}<={v:.3g}" for k, v in checks.items())
+        cells = " ".join(f"{m[c]:8.2%}" if np.isfinite(m[c]) else f"{'-':>8s}" for c in cols)
+        print(f"{label:26s} {cells} {ratio:7.1f} {m['secs']:5.1f}  {tgt} -> {'PASS' if ok else 'FAIL'}; "
+              f"2x baseline: {'yes' if ratio >= 2 else 'NO'}")
+        sys.stdout.flush()
+    return 0
 
 
 if __name__ == "__main__":
-    rng = np.random.default_rng(2024)
-    print(f"{'case':28s} " + " ".join(f"{k[:9]:>9s}" for k in
-          ["kappa_med", "kappa_rms", "tau_med", "tauP95/k", "len_err", "B_kap_med", "B_tau_med", "B_tP95/k"]))
-    hx = S.helix(50, 5, 10, 10, 3)
-    case("helix RTK 10Hz", hx, "rtk", rng)
-    case("helix phone 10Hz", hx, "phone", rng)
-    case("helix phone +outl/outage/dup", hx, "phone", rng, corrupt=True)
-    case("road dual 10Hz 80km/h", S.road_alignment(), "dual", rng)
-    case("road dual +outl/outage/dup", S.road_alignment(), "dual", rng, corrupt=True)
-    case("road phone 1Hz", S.road_alignment(rate_hz=1.0), "phone", rng)
-    case("plane loop dual 5Hz", S.plane_loop(), "dual", rng)
-    case("switchbacks R8 phone 1Hz", S.switchbacks(), "phone", rng)
-    case("switchbacks R8 dual 1Hz", S.switchbacks(), "dual", rng)
+    raise SystemExit(main())
