@@ -7,19 +7,25 @@ Steps (one-way):
 2. The "time" of the smoother is the fix time; a log without time uses the raw 3D chord chainage
    of its fixes instead (speed, time and lateral acceleration are then NaN). Fixes sharing one
    time are merged (their mean, with the variance of one fix: repeated fixes add no information).
-3. Noise by maximum likelihood (``survey.smooth.fit_noise``) on up to three stretches of at most
-   ``fit_fixes`` fixes, horizontal and vertical separately. With per-fix accuracy, the
-   horizontal variance is accuracy^2 (a floor the likelihood may only raise) and the vertical
-   (``vertical_factor`` x accuracy)^2 (heights are 1.5-1.7x noisier: REFERENCES.md, GNSS accuracy);
-   without it the white variance and a Gauss-Markov wander (``wander_tau_s``) are estimated.
-4. Chainage = integral of the smoothed 3D speed over time, where the mover is moving; where the
-   smoothed speed is below ``stationary_speed_mps`` the chainage does not advance, so no station
-   falls inside a stop and curvature never blows up there (kappa is defined per metre of path).
+3. Gross outliers (multipath jumps) are screened per segment before anything is fitted
+   (``survey.smooth.screen_outliers``); Huber re-weighting in the smoother does the rest.
+4. Noise by maximum likelihood (``survey.smooth.fit_noise``) on up to three stretches of at most
+   ``fit_fixes`` fixes, horizontal and vertical separately: snap density, white variance and a
+   Gauss-Markov wander (``wander_tau_s``). With per-fix accuracy, accuracy^2 (vertical:
+   (``vertical_factor`` x accuracy)^2, heights are 1.5-1.7x noisier: REFERENCES.md, GNSS
+   accuracy) bounds the TOTAL white + wander variance (``accuracy_cap``); it is not a white floor,
+   which would oversmooth bends.
+5. 1-sigma of kappa, tau and the velocity from ``n_samples`` repeated-noise estimates (the
+   smoother's sampling error, ``survey.smooth.noise_draws``) on a time grid of two knot intervals.
+6. Chainage = integral of the smoothed 3D speed over time, where the mover is moving; where the
+   smoothed speed is below ``stop_sigmas`` times its own 1-sigma the mover is taken as stopped and
+   the chainage does not advance, so no station falls inside a stop (kappa is per metre of path).
+   Stations on the run into or out of a stop whose speed is below ``slow_sigmas`` x its 1-sigma
+   (heading uncertain by more than ~1/20 rad) take the geometry of the nearest measured station.
    Chainage is continuous over the whole log: a segment starts where the previous one ended plus
    the straight distance across the gap, and its first station is the next multiple of the step.
-5. Stations every ``step_m`` of chainage; geometry from the posterior mean (``survey.geometry``);
-   1-sigma of kappa and tau from ``n_samples`` exact posterior samples (Monte Carlo). Torsion is
-   NaN with reason TORSION_LOW_CURVATURE where kappa < ``kappa_sigmas`` x its 1-sigma.
+7. Stations every ``step_m`` of chainage; geometry from the estimate (``survey.geometry``). Torsion
+   is NaN with reason TORSION_LOW_CURVATURE where kappa < ``kappa_sigmas`` x its 1-sigma.
 """
 
 from __future__ import annotations

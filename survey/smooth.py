@@ -31,11 +31,18 @@ Solution
 The joint prior of the knot states has a block-tridiagonal precision matrix; the fixes add a
 block-tridiagonal term. The posterior mean solves one symmetric positive-definite banded system
 (LAPACK pbtrf/pbtrs through ``scipy.linalg``), O(n) and vectorised. Its Cholesky factor U
-(Lambda = U^T U) also gives exact posterior samples x_hat + U^-1 z (banded triangular solve; used
-for the 1-sigma of curvature and torsion by Monte Carlo) and the exact log marginal likelihood
-(log det Lambda = 2 sum log diag U), maximised over q, the measurement-variance scale and the wander
-(``fit_noise``). Fixes are re-weighted after each solve (Huber weights on the standardised
-residual, rejection beyond ``reject_sigma``) so multipath outliers lose their pull.
+(Lambda = U^T U) also gives exact posterior samples x_hat + U^-1 z (banded triangular solve),
+repeated-noise estimates (below) and the exact log marginal likelihood
+(log det Lambda = 2 sum log diag U), maximised over q, the white variance and the wander variance
+(``fit_noise``); a stated per-fix accuracy bounds the total of the two.
+
+Gross multipath jumps are screened before the fit (``screen_outliers``: otherwise the likelihood
+explains them with a path that swerves through them), and fixes are re-weighted after
+each solve (Huber weights on the standardised residual, rejection beyond ``reject_sigma``).
+The 1-sigma of derived quantities comes from ``noise_draws``: fresh receiver-error realisations
+passed through the same linear smoother (its sampling error for a fixed path), which covers the
+truth at the stated rate on repeated logs; the Bayesian posterior spread (``draw_samples``)
+over-covers torsion (measured 96 % for a 1-sigma band).
 
 Units: metres and seconds at the interface (or metres of raw chainage as the "time" of a log
 without timestamps). Internally time is measured in knot intervals.
