@@ -206,7 +206,8 @@ class TrackApp(App):
         self.timings["geometry_ready_s"] = time.perf_counter() - self._t_start
         self._t_geometry = time.perf_counter()
         if len(profile) < 2:
-            raise InputError(self.log_path, "the log gives fewer than two stations; nothing to draw")
+            why = "; ".join(getattr(profile, "messages", ()) or ())
+            raise InputError(self.log_path, f"the log gives fewer than two stations; nothing to draw{': ' + why if why else ''}")
         store = None
         if self.use_marks and self.log_path:
             self.call_from_thread(self._stage, 2)
@@ -337,7 +338,14 @@ class TrackApp(App):
             self.set_status(none_text)
             return
         self._moved()
-        self.set_status(f"{sec.id}: {sec.note}" if sec.kind != "design" else f"{sec.id}: {sec.note.split('. ')[0]} ({SHORT_CAUTION})")
+        if sec.kind == "design":
+            lim = self.model.limits
+            self.set_status(
+                f"{sec.id} (advisory: codes and a licensed engineer decide) plan R {sec.note.split('down to ')[-1].split(',')[0]}"
+                f" < {lim.design_radius_m:.0f} m for {lim.design_speed_kmh:g} km/h; e+f used up at {sec.balance_speed_kmh:.0f} km/h"
+            )
+        else:
+            self.set_status(f"{sec.id}: {sec.note}")
 
     def action_toggle_radius(self) -> None:
         charts = self.query_one(ChartPanel)

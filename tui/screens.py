@@ -7,7 +7,7 @@ from pathlib import Path
 
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Vertical, VerticalScroll
+from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.screen import ModalScreen, Screen
 from textual.widgets import Input, Label, LoadingIndicator, ProgressBar, Select, Static
 
@@ -143,7 +143,7 @@ class NoteScreen(ModalScreen[str | None]):
     def compose(self) -> ComposeResult:
         with Vertical():
             yield Label(self.title_text)
-            yield Input(value=self.note, placeholder="note (e.g. washout, loose rock)", id="note")
+            yield Input(value=self.note, placeholder="note (e.g. washout, loose rock)", id="note", compact=True)
             yield Label("enter = save   escape = cancel")
 
     def on_input_submitted(self, event: Input.Submitted) -> None:
@@ -177,10 +177,12 @@ class LimitsScreen(ModalScreen[Limits | None]):
 
     DEFAULT_CSS = """
     LimitsScreen { align: center middle; }
-    LimitsScreen > VerticalScroll { width: 78; max-width: 98%; height: 90%; border: round $accent; padding: 0 1; }
-    LimitsScreen Input { width: 100%; }
+    LimitsScreen > VerticalScroll { width: 78; max-width: 98%; height: auto; max-height: 95%; border: round $accent; padding: 0 1; }
     LimitsScreen .row { height: 1; }
-    #limits-error { color: $error; }
+    LimitsScreen .row Label { width: 34; }
+    LimitsScreen .row Input { width: 1fr; }
+    #limits-error { color: $error; height: auto; }
+    #preset { margin-bottom: 1; }
     """
     BINDINGS = [Binding("escape", "close", "close"), Binding("ctrl+r", "revert", "undo changes")]
 
@@ -193,13 +195,18 @@ class LimitsScreen(ModalScreen[Limits | None]):
     def compose(self) -> ComposeResult:
         with VerticalScroll():
             yield Label("LIMITS (flags update as you type; empty = check off; escape closes)")
-            yield Select([(f"{p.name}: {p.summary}", p.name) for p in PRESETS.values()], prompt="start from a preset…", id="preset")
+            yield Select([(f"{p.name}: {p.summary}", p.name) for p in PRESETS.values()], prompt="start from a preset…",
+                         id="preset", compact=True)
             for attr, label, placeholder in LIMIT_FIELDS:
-                yield Label(label, classes="row")
                 value = getattr(self.original, attr)
-                yield Input(value="" if value is None else f"{value:g}", placeholder=placeholder, id=f"lim-{attr}")
+                with Horizontal(classes="row"):
+                    yield Label(label)
+                    yield Input(value="" if value is None else f"{value:g}", placeholder=placeholder, id=f"lim-{attr}", compact=True)
             yield Static("", id="limits-error")
             yield Static(f"Design-speed figures: {CAUTION}", id="caution")
+
+    def on_mount(self) -> None:
+        self.query_one(f"#lim-{LIMIT_FIELDS[0][0]}", Input).focus()
 
     def _read(self) -> Limits:
         values = {}
@@ -277,8 +284,10 @@ class ExportScreen(ModalScreen[tuple[str, bool] | None]):
     def compose(self) -> ComposeResult:
         with Vertical():
             yield Label(f"EXPORT {self.count} section(s) with your marks")
-            yield Select([(d, ext) for ext, d in EXPORT_FORMATS], value=Path(self.default_path).suffix or ".csv", allow_blank=False, id="format")
-            yield Input(value=self.default_path, id="path")
+            yield Select([(d, ext) for ext, d in EXPORT_FORMATS], value=Path(self.default_path).suffix or ".csv",
+                         allow_blank=False, id="format", compact=True)
+            yield Label("file (the extension picks the format):")
+            yield Input(value=self.default_path, id="path", compact=True)
             yield Static("overwrite an existing file: no (ctrl+o changes)", id="force")
             yield Static("", id="export-error")
             yield Label("enter = write   escape = cancel")

@@ -223,6 +223,7 @@ class ChartPanel(Widget):
             lo, hi = m.kappa.vmin.query(a, b), m.kappa.vmax.query(a, b)
             blo, bhi = m.kappa.bmin.query(a, b), m.kappa.bmax.query(a, b)
             sharp = 1.0 / lim.sharp_radius_m if lim.sharp_radius_m else None
+            design = 1.0 / lim.design_radius_m if lim.design_on else None
             if self.radius_mode:
                 with np.errstate(divide="ignore", invalid="ignore"):
                     r_lo = np.log10(1.0 / hi)
@@ -233,20 +234,24 @@ class ChartPanel(Widget):
                 y0 = float(np.min(finite)) - 0.1 if finite.size else 0.0
                 tops = np.concatenate((r_hi[np.isfinite(r_hi)], r_lo[np.isfinite(r_lo)]))
                 y1 = min(max(float(np.max(tops)) + 0.1 if tops.size else y0 + 1, y0 + 1.0), y0 + 4.0)
-                refs = ((math.log10(lim.sharp_radius_m), LIMIT_CHAR, LIMIT),) if lim.sharp_radius_m else ()
+                refs = tuple((math.log10(r), LIMIT_CHAR, LIMIT) for r in (lim.sharp_radius_m, lim.design_radius_m) if r)
                 r_hi = np.where(np.isfinite(lo) & ~np.isfinite(r_hi), y1, r_hi)
                 b_hi = np.where(np.isfinite(blo) & ~np.isfinite(b_hi), y1, b_hi)
                 grid = chart_grid(r_lo, r_hi, nrows, y0, y1, b_lo, b_hi, refs=refs)
-                title = "radius R, m, log scale  ░ ±1σ"
+                title = "radius R m, log scale  ░±1σ"
+                if lim.design_on:
+                    title += f"  ┄advisory design R {lim.design_radius_m:.0f} m"
                 if lim.sharp_radius_m:
-                    title += f"  ┄ limit {fmt.length(lim.sharp_radius_m)}"
+                    title += f"  ┄limit {fmt.length(lim.sharp_radius_m)}"
                 return title, grid, fmt.length(10**y1).replace(" (straight)", ""), fmt.length(10**y0)
-            y0, y1 = y_range(lo, hi, include_zero=True, extra=(sharp,) if sharp else ())
-            refs = ((0.0, ZERO_CHAR, AXIS),) + (((sharp, LIMIT_CHAR, LIMIT),) if sharp else ())
+            y0, y1 = y_range(lo, hi, include_zero=True, extra=[v for v in (sharp, design) if v])
+            refs = ((0.0, ZERO_CHAR, AXIS),) + tuple((v, LIMIT_CHAR, LIMIT) for v in (sharp, design) if v)
             grid = chart_grid(lo, hi, nrows, y0, y1, blo, bhi, refs=refs)
-            title = "curvature κ, 1/m  ░ ±1σ"
+            title = "curvature κ 1/m  ░±1σ"
+            if design:
+                title += f"  ┄advisory design R {lim.design_radius_m:.0f} m"
             if sharp:
-                title += f"  ┄ limit 1/{fmt.length(lim.sharp_radius_m)}"
+                title += f"  ┄limit R {fmt.length(lim.sharp_radius_m)}"
             return title, grid, fmt.sig(y1), fmt.sig(y0)
         if kind == "tors":
             lo, hi = m.tau.vmin.query(a, b), m.tau.vmax.query(a, b)
@@ -258,9 +263,9 @@ class ChartPanel(Widget):
             if tw:
                 refs += ((tw, LIMIT_CHAR, LIMIT), (-tw, LIMIT_CHAR, LIMIT))
             grid = chart_grid(lo, hi, nrows, y0, y1, blo, bhi, gap=gap, refs=refs)
-            title = "torsion τ, 1/m  ░ ±1σ  · undefined"
+            title = "torsion τ 1/m  ░±1σ  ·undefined"
             if tw:
-                title += f"  ┄ limit ±{fmt.sig(tw)}"
+                title += f"  ┄limit ±{fmt.short(tw)}"
             return title, grid, fmt.sig(y1), fmt.sig(y0)
         if kind == "elev":
             lo, hi = m.height.vmin.query(a, b), m.height.vmax.query(a, b)
@@ -274,12 +279,12 @@ class ChartPanel(Widget):
                 g = ""
             if not np.isfinite(lo).any():
                 return "elevation: no heights in this stretch (· = none)", grid, "", ""
-            return f"elevation, m ({ref}){g}", grid, fmt.sig(y1, 4), fmt.sig(y0, 4)
+            return f"elevation m ({ref}){g}", grid, fmt.sig(y1, 4), fmt.sig(y0, 4)
         # grade
         lo, hi = m.grade.vmin.query(a, b), m.grade.vmax.query(a, b)
         y0, y1 = y_range(lo, hi, include_zero=True)
         grid = chart_grid(lo, hi, nrows, y0, y1, refs=((0.0, ZERO_CHAR, AXIS),))
-        return "grade, % (+ uphill)", grid, fmt.sig(y1), fmt.sig(y0)
+        return "grade % (+ uphill)", grid, fmt.sig(y1), fmt.sig(y0)
 
     # -- per render ----------------------------------------------------------------------------
 
@@ -346,8 +351,6 @@ class ChartPanel(Widget):
             strip = self._lane()
             ch = strip.crop(self.MARGIN + x, self.MARGIN + x + 1).text or " "
             return with_cursor(strip, self.MARGIN + x, CURSOR_CHAR if ch == " " else ch, cstyle)
-        if y == self._axis_row:
-            return with_cursor(self._rows[y], self.MARGIN + x, "▲", cstyle)
         strip = self._rows[y]
         hit = self._grids.get(y)
         if hit is None or x < 0:
@@ -460,7 +463,9 @@ class PlanView(Widget):
         self._grid, self._transform = grid, transform
         cell_m = 2 * transform[2]
         mode = "window" if self.follow else "whole track"
-        title = f"plan ({mode}) N↑ 1 col≈{fmt.length(cell_m)} ○start ●cursor"
+        title = f"plan ({mode}) N↑ 1 col≈{fmt.length(cell_m)}"
+        if len(title) + 16 <= w:
+            title += "  ○start ●cursor"
         base = self.rich_style
         self._rows = [Strip([Segment(title[:w].ljust(w), base + Style(bold=True))], w)] + grid_strips(grid, base)
 
@@ -580,22 +585,27 @@ class Readout(Widget):
 
 
 def section_label(s: Section) -> str:
-    """One line per section: id, kind, chainage range and its key figure."""
+    """One line per section: id, kind, chainage range, confidence and its key figure (design
+    figures carry "advisory" in the same line)."""
     span = f"{fmt.chainage(s.start_chainage_m)}–{fmt.chainage(s.end_chainage_m)}"
     if s.kind == KIND_SHARP:
         fig = f"R {fmt.length(s.min_radius_m)}"
     elif s.kind == KIND_TWISTING:
         fig = f"|τ| {fmt.sig(s.max_abs_torsion_per_m)}/m"
     elif s.kind == KIND_DESIGN:
-        fig = f"e+f used at {s.balance_speed_kmh:.0f} km/h (advisory)"
+        fig = f"advisory: e+f used at {s.balance_speed_kmh:.0f} km/h"
     else:
         fig = repr(s.note) if s.note else "(no note)"
-    conf = f" {s.confidence * 100:.0f}%" if math.isfinite(s.confidence) else ""
-    return f"{s.id:<4} {s.kind:<8} {span}  {fig}{conf}"
+    conf = f"{s.confidence * 100:3.0f}%" if math.isfinite(s.confidence) else "    "
+    return f"{s.id:<4} {s.kind[:6]:<6} {span} {conf} {fig}"
 
 
 class SectionList(OptionList):
     """Automatic and marked sections along the chainage; Enter (or a click) jumps to one."""
+
+    DEFAULT_CSS = """
+    SectionList { text-wrap: nowrap; text-overflow: ellipsis; }
+    """
 
     def __init__(self, **kw):
         super().__init__(markup=False, compact=True, **kw)
@@ -603,4 +613,7 @@ class SectionList(OptionList):
 
     def show(self, sections: list[Section]) -> None:
         self.sections = list(sections)
-        self.set_options([Option(section_label(s)) for s in self.sections] or [Option("no sections with the current limits", disabled=True)])
+        self.set_options(
+            [Option(Text(section_label(s), no_wrap=True, overflow="ellipsis")) for s in self.sections]
+            or [Option("no sections with the current limits", disabled=True)]
+        )
