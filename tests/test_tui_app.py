@@ -319,3 +319,22 @@ def test_view_without_a_terminal_says_so_in_one_line(capsys, road):
 def test_demo_with_text_prints_the_summary(capsys):
     assert main(["demo", "--text"]) == 0
     assert "ridge_trail_phone.gpx" in capsys.readouterr().out
+
+
+def test_radius_view_and_plan_follow_switch_on_their_keys(log_copy):
+    log, profile = log_copy
+
+    async def go():
+        app = TrackApp(log_path=str(log), profile=profile, limits=LIMITS)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await until(pilot, lambda: app.model is not None)
+            await pilot.press("r", "v", "plus", "plus")
+            await pilot.pause()
+            return app.query_one(ChartPanel).text_lines(), app.query_one(PlanView).text_lines()
+
+    charts, plan = run(go())
+    assert charts[0].startswith("radius")
+    # edge labels of the log scale are radii with their unit, whole within the margin
+    labels = [line[:7].strip() for line in charts[1:4] if line[7] == "┤"]
+    assert len(labels) == 2 and all(lab.endswith((" m", " km")) for lab in labels)
+    assert plan[0].startswith("plan (window)")

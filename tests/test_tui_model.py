@@ -9,7 +9,6 @@ from __future__ import annotations
 import json
 import math
 
-import numpy as np
 import pytest
 
 from survey.design import Limits

@@ -111,3 +111,12 @@ def test_plan_keeps_metres_equal_on_both_axes():
     width_dots = (cols[-1] - cols[0] + 1) * 2
     height_dots = (rows[-1] - rows[0] + 1) * 4
     assert abs(width_dots - height_dots) <= 4
+
+
+def test_axis_labels_fit_the_seven_character_margin():
+    from tui import fmt
+
+    for x in (-1.234e-5, 0.0569, -0.0569, 1234.5, -12345.6, 3e-9, 0.0, 98765.4):
+        text = fmt.axis(x, digits=4)
+        assert len(text) <= 7 and abs(float(text) - x) <= 0.06 * abs(x) + 1e-12
+    assert fmt.short_length(316_123.0) == "316 km" and fmt.short_length(22.31) == "22.3 m"

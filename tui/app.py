@@ -24,7 +24,7 @@ from survey.sections import detect_sections
 from . import fmt
 from .model import ViewModel
 from .screens import ConfirmScreen, ErrorScreen, ExportScreen, HelpScreen, LimitsScreen, LoadingScreen, NoteScreen
-from .widgets import SHORT_CAUTION, ChartPanel, PlanView, Readout, SectionList
+from .widgets import ChartPanel, PlanView, Readout, SectionList
 
 #: Limits used when the caller gives none: a general-purpose starting point (our own values).
 DEFAULT_LIMITS = Limits(sharp_radius_m=15.0, twist_per_m=0.05)

@@ -45,6 +45,15 @@ def sig(x: float, digits: int = 3) -> str:
     return f"{x:.{max(digits - 1, 0)}e}".replace("e-0", "e-").replace("e+0", "e")
 
 
+def axis(x: float, width: int = 7, digits: int = 3) -> str:
+    """A number in at most ``width`` characters (fewer significant digits if needed)."""
+    for d in range(digits, 0, -1):
+        text = sig(x, d)
+        if len(text) <= width:
+            return text
+    return text[:width]
+
+
 def length(m: float) -> str:
     """A radius or distance: ``12.3 m``, ``1.25 km``, ``∞``."""
     if m is None or math.isnan(m):
@@ -56,6 +65,15 @@ def length(m: float) -> str:
     if abs(m) >= 1000:
         return f"{m / 1000:.2f} km"
     return f"{m:.1f} m"
+
+
+def short_length(m: float) -> str:
+    """A length in at most 7 characters for axis labels: ``22.3 m``, ``397 m``, ``12.5 km``."""
+    if not finite(m):
+        return NA if m is None or math.isnan(m) else "∞"
+    if abs(m) < 1000:
+        return f"{m:.3g} m"
+    return f"{m / 1000:.3g} km"
 
 
 def latlon(lat: float, lon: float) -> str:

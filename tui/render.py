@@ -88,7 +88,9 @@ def y_range(lo: np.ndarray, hi: np.ndarray, include_zero: bool = False, extra=()
         return -1.0, 1.0
     a, b = min(vals), max(vals)
     if b - a <= 1e-12 * max(1.0, abs(a), abs(b)):
-        pad = max(abs(a) * 0.1, 1e-9)
+        # flat: +-10 % around the value, or +-0.001 around zero (a scale typical of curvature
+        # and torsion in 1/m; the labels show the numbers either way)
+        pad = abs(a) * 0.1 if a != 0 else 1e-3
         return a - pad, b + pad
     pad = 0.05 * (b - a)
     return (a if (include_zero and a == 0.0) else a - pad), b + pad
@@ -98,7 +100,7 @@ def _cover(vlo: np.ndarray, vhi: np.ndarray, y0: float, y1: float, sub: int) -> 
     """(sub, C) bool: which half-cells (top first) the interval [vlo, vhi] of each column touches."""
     ok = np.isfinite(vlo) & np.isfinite(vhi) & (vhi >= y0) & (vlo <= y1)
     dy = (y1 - y0) / sub
-    with np.errstate(invalid="ignore"):
+    with np.errstate(invalid="ignore", over="ignore"):
         top = np.clip(np.floor((y1 - np.nan_to_num(vhi, nan=y1)) / dy), 0, sub - 1)
         bot = np.clip(np.floor((y1 - np.nan_to_num(vlo, nan=y0)) / dy), 0, sub - 1)
     r = np.arange(sub)[:, None]

@@ -21,7 +21,7 @@ from textual.widget import Widget
 from textual.widgets import OptionList
 from textual.widgets.option_list import Option
 
-from survey.sections import KIND_DESIGN, KIND_MARKED, KIND_SHARP, KIND_TWISTING, Section
+from survey.sections import KIND_DESIGN, KIND_SHARP, KIND_TWISTING, Section
 from survey.stations import TORSION_LOW_CURVATURE, TORSION_NO_DATA
 from survey.track import HEIGHT_ELLIPSOID, HEIGHT_MSL, HEIGHT_NONE
 
@@ -231,19 +231,27 @@ class ChartPanel(Widget):
                     b_lo = np.log10(1.0 / bhi)
                     b_hi = np.where(blo > 0, np.log10(1.0 / blo), np.inf)
                 finite = r_lo[np.isfinite(r_lo)]
-                y0 = float(np.min(finite)) - 0.1 if finite.size else 0.0
+                limits_r = [math.log10(r) for r in (lim.sharp_radius_m, lim.design_radius_m) if r]
+                y0 = min([float(np.min(finite))] if finite.size else [0.0] + limits_r) - 0.1
+                y0 = min([y0] + [v - 0.1 for v in limits_r])
                 tops = np.concatenate((r_hi[np.isfinite(r_hi)], r_lo[np.isfinite(r_lo)]))
-                y1 = min(max(float(np.max(tops)) + 0.1 if tops.size else y0 + 1, y0 + 1.0), y0 + 4.0)
+                # 0.3 decade of headroom keeps the largest finite radius apart from the straights
+                # (infinite radius), which are drawn on the top edge
+                # and radii beyond 10 km (or 100x the smallest) are all but straight: top edge
+                y1 = min(max(float(np.max(tops)) + 0.3 if tops.size else y0 + 1, y0 + 1.0), max(y0 + 2.0, 4.0))
                 refs = tuple((math.log10(r), LIMIT_CHAR, LIMIT) for r in (lim.sharp_radius_m, lim.design_radius_m) if r)
+                # a straight (curvature 0) has an infinite radius: drawn at the top edge, not as
+                # a gap (it is a value, just off the scale)
                 r_hi = np.where(np.isfinite(lo) & ~np.isfinite(r_hi), y1, r_hi)
+                r_lo = np.where(np.isfinite(hi) & ~np.isfinite(r_lo), y1, r_lo)
                 b_hi = np.where(np.isfinite(blo) & ~np.isfinite(b_hi), y1, b_hi)
                 grid = chart_grid(r_lo, r_hi, nrows, y0, y1, b_lo, b_hi, refs=refs)
-                title = "radius R m, log scale  ░±1σ"
+                title = "radius R m, log, ∞ at top  ░±1σ"
                 if lim.design_on:
                     title += f"  ┄advisory design R {lim.design_radius_m:.0f} m"
                 if lim.sharp_radius_m:
                     title += f"  ┄limit {fmt.length(lim.sharp_radius_m)}"
-                return title, grid, fmt.length(10**y1).replace(" (straight)", ""), fmt.length(10**y0)
+                return title, grid, fmt.short_length(10**y1), fmt.short_length(10**y0)
             y0, y1 = y_range(lo, hi, include_zero=True, extra=[v for v in (sharp, design) if v])
             refs = ((0.0, ZERO_CHAR, AXIS),) + tuple((v, LIMIT_CHAR, LIMIT) for v in (sharp, design) if v)
             grid = chart_grid(lo, hi, nrows, y0, y1, blo, bhi, refs=refs)
@@ -252,7 +260,7 @@ class ChartPanel(Widget):
                 title += f"  ┄advisory design R {lim.design_radius_m:.0f} m"
             if sharp:
                 title += f"  ┄limit R {fmt.length(lim.sharp_radius_m)}"
-            return title, grid, fmt.sig(y1), fmt.sig(y0)
+            return title, grid, fmt.axis(y1), fmt.axis(y0)
         if kind == "tors":
             lo, hi = m.tau.vmin.query(a, b), m.tau.vmax.query(a, b)
             blo, bhi = m.tau.bmin.query(a, b), m.tau.bmax.query(a, b)
@@ -266,7 +274,7 @@ class ChartPanel(Widget):
             title = "torsion τ 1/m  ░±1σ  ·undefined"
             if tw:
                 title += f"  ┄limit ±{fmt.short(tw)}"
-            return title, grid, fmt.sig(y1), fmt.sig(y0)
+            return title, grid, fmt.axis(y1), fmt.axis(y0)
         if kind == "elev":
             lo, hi = m.height.vmin.query(a, b), m.height.vmax.query(a, b)
             glo, ghi = m.grade.vmin.query(a, b), m.grade.vmax.query(a, b)
@@ -279,12 +287,12 @@ class ChartPanel(Widget):
                 g = ""
             if not np.isfinite(lo).any():
                 return "elevation: no heights in this stretch (· = none)", grid, "", ""
-            return f"elevation m ({ref}){g}", grid, fmt.sig(y1, 4), fmt.sig(y0, 4)
+            return f"elevation m ({ref}){g}", grid, fmt.axis(y1, digits=4), fmt.axis(y0, digits=4)
         # grade
         lo, hi = m.grade.vmin.query(a, b), m.grade.vmax.query(a, b)
         y0, y1 = y_range(lo, hi, include_zero=True)
         grid = chart_grid(lo, hi, nrows, y0, y1, refs=((0.0, ZERO_CHAR, AXIS),))
-        return "grade % (+ uphill)", grid, fmt.sig(y1), fmt.sig(y0)
+        return "grade % (+ uphill)", grid, fmt.axis(y1), fmt.axis(y0)
 
     # -- per render ----------------------------------------------------------------------------
 
@@ -584,6 +592,9 @@ class Readout(Widget):
 # Section list
 
 
+KIND_SHORT = {KIND_SHARP: "sharp", KIND_TWISTING: "twist", KIND_DESIGN: "design", "marked": "mark"}
+
+
 def section_label(s: Section) -> str:
     """One line per section: id, kind, chainage range, confidence and its key figure (design
     figures carry "advisory" in the same line)."""
@@ -597,7 +608,7 @@ def section_label(s: Section) -> str:
     else:
         fig = repr(s.note) if s.note else "(no note)"
     conf = f"{s.confidence * 100:3.0f}%" if math.isfinite(s.confidence) else "    "
-    return f"{s.id:<4} {s.kind[:6]:<6} {span} {conf} {fig}"
+    return f"{s.id:<4} {KIND_SHORT.get(s.kind, s.kind):<6} {span} {conf} {fig}"
 
 
 class SectionList(OptionList):
