@@ -36,6 +36,16 @@ TORSION_REASONS = {
     TORSION_NO_DATA: "no data (gap or outage)",
 }
 
+#: Extra columns written when the Profile carries IMU-fused fields (attribute, description).
+IMU_PROFILE_COLUMNS: tuple[tuple[str, str], ...] = (
+    ("bank_deg", "deg, + = left side low"),
+    ("bank_sd_deg", "deg, 1-sigma"),
+    ("twist_deg_per_m", "deg/m, rate of change of bank"),
+    ("gyro_plan_curvature_per_m", "1/m, yaw rate / speed, + = left"),
+    ("pitch_deg", "deg, + = nose up"),
+    ("imu_outage", "1 inside a GNSS outage bridged by the IMU"),
+)
+
 #: Columns written by ``trackframe profile``, in order: (attribute, unit/description).
 PROFILE_COLUMNS: tuple[tuple[str, str], ...] = (
     ("chainage_m", "m along the smoothed 3D path from the first station"),
@@ -92,6 +102,19 @@ class Profile:
     segment: NDArray[np.int32]
     #: 1-sigma of plan curvature, 1/m (None when the builder does not provide it).
     plan_curvature_sd_per_m: FloatArray | None = None
+    # -- present only when an IMU log was fused (``--imu``); None otherwise --------------------
+    #: Roll (bank) angle of the vehicle, degrees, + = left side low (same sign as a left bend).
+    bank_deg: FloatArray | None = None
+    #: 1-sigma of ``bank_deg``, degrees.
+    bank_sd_deg: FloatArray | None = None
+    #: Rate of change of bank per metre of chainage, degrees/m: the twist a rider feels.
+    twist_deg_per_m: FloatArray | None = None
+    #: Plan curvature seen by the gyro, yaw rate / speed, 1/m (+ = left), an independent check.
+    gyro_plan_curvature_per_m: FloatArray | None = None
+    #: Pitch angle, degrees, + = nose up.
+    pitch_deg: FloatArray | None = None
+    #: True where the station lies in a GNSS outage bridged by the IMU alone.
+    imu_outage: NDArray[np.bool_] | None = None
     step_m: float = 1.0
     height_ref: str = "unknown"
     frame: str = ""
