@@ -12,20 +12,13 @@ from __future__ import annotations
 
 import argparse
 import sys
+import textwrap
 
-from ..batch import (
-    BatchOptions,
-    Progress,
-    check_batch_output,
-    default_jobs,
-    expand_paths,
-    run_batch,
-    write_batch,
-)
 from ..errors import InputError
-from ..export import STDOUT
-from ..sections import KINDS
 from .common import log_kwargs
+
+# survey.batch (and through it the export and section code) is imported when the command runs,
+# not when the CLI builds its parser: every other command starts faster for it.
 
 #: Option groups taken over from ``trackframe flag`` (so both commands accept the same options).
 _FLAG_GROUPS = ("reading the log", "local frame", "limits", "detection", "output")
@@ -73,14 +66,21 @@ def add_parser(subparsers) -> None:
     p = subparsers.add_parser(
         "batch",
         help="flag sections in many logs (files, folders, globs) into one findings file",
-        description="Run the flag pipeline on every log named by PATHS and write one combined "
-        "findings file (.csv .xlsx .geojson, or - for CSV on stdout) whose first column names the "
-        "log. A log that fails is listed with its error and the others go on. Exit status 0 if "
-        "every log succeeded, 1 if any failed.",
+        description=textwrap.fill(
+            "Run the flag pipeline on every log named by PATHS and write one combined findings "
+            "file (.csv .xlsx .geojson, or - for CSV on stdout) whose first column names the log. "
+            "A log that fails is listed with its error and the others go on. Exit status 0 if "
+            "every log succeeded, 1 if any failed.",
+            88,
+        ),
         epilog=_flag_parser().epilog
-        + "\n\nRunning on a Dask cluster: start `dask scheduler` on a head node and `dask worker "
-        "tcp://HEAD:8786` on each node (same trackframe installed, logs on a shared path seen at "
-        "the same absolute path), then run `trackframe batch ... --dask tcp://HEAD:8786`.",
+        + "\n\n"
+        + textwrap.fill(
+            "Running on a Dask cluster: start `dask scheduler` on a head node and `dask worker "
+            "tcp://HEAD:8786` on each node (same trackframe installed, the logs on a shared path "
+            "seen at the same absolute path), then run `trackframe batch ... --dask tcp://HEAD:8786`.",
+            88,
+        ),
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     p.add_argument(
@@ -95,7 +95,7 @@ def add_parser(subparsers) -> None:
     )
     run_group = p.add_argument_group("running")
     where = run_group.add_mutually_exclusive_group()
-    where.add_argument("-j", "--jobs", type=_jobs, metavar="N", help=f"local worker processes (default: every core, here {default_jobs()})")
+    where.add_argument("-j", "--jobs", type=_jobs, metavar="N", help="local worker processes (default: one per core)")
     where.add_argument(
         "--dask",
         metavar="ADDRESS",
@@ -105,6 +105,8 @@ def add_parser(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from ..batch import BatchOptions, Progress, check_batch_output, default_jobs, expand_paths, run_batch, write_batch
+    from ..export import STDOUT
     from .flag import limits_from_args
 
     output = args.output
@@ -141,6 +143,9 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _summary(fh, results, limits, output: str) -> None:
+    from ..export import STDOUT
+    from ..sections import KINDS
+
     ok = sum(r.ok for r in results)
     counts = {k: sum(1 for r in results for s in r.sections if s.kind == k) for k in KINDS}
     total = sum(counts.values())
