@@ -218,8 +218,9 @@ def test_changing_a_limit_updates_the_flags_live(log_copy):
     assert len(radii) == 1 and radii[0] < 30.0 and "R<30 m" in header
 
 
-def test_a_bad_log_shows_a_message_not_a_traceback(tmp_path):
-    bad = tmp_path / "chewed.gpx"
+@pytest.mark.parametrize("name", ["chewed.gpx", "ridge [bold]2026[b].gpx"])  # brackets are not markup
+def test_a_bad_log_shows_a_message_not_a_traceback(tmp_path, name):
+    bad = tmp_path / name
     bad.write_text("<gpx><trk><trkseg><trkpt lat='north' lon='8'></trkpt>")
 
     async def go():

@@ -12,6 +12,7 @@ from __future__ import annotations
 import time
 from pathlib import Path
 
+from rich.text import Text
 from textual.app import App, ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
@@ -251,12 +252,13 @@ class TrackApp(App):
     # -- refresh helpers -----------------------------------------------------------------------
 
     def set_status(self, text: str) -> None:
-        self.query_one("#status", Static).update(text)
+        # Text, not markup: messages may hold file names and notes with brackets
+        self.query_one("#status", Static).update(Text(text, no_wrap=True, overflow="ellipsis"))
 
     def _header(self) -> None:
         m = self.model
         parts = [m.log_name, f"{fmt.chainage(m.length_m())}", fmt.duration(m.duration_s()), m.frame_text, limits_text(m.limits)]
-        self.query_one("#header", Static).update(" │ ".join(p for p in parts if p))
+        self.query_one("#header", Static).update(Text(" │ ".join(p for p in parts if p)))
 
     def _moved(self) -> None:
         """Refresh what a cursor move changes (the widgets redraw only their cursor layer unless

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
+from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical, VerticalScroll
@@ -33,7 +34,7 @@ class LoadingScreen(Screen):
 
     def compose(self) -> ComposeResult:
         with Vertical():
-            yield Label(f"opening {self.name_text}")
+            yield Label(Text(f"opening {self.name_text}"))
             yield ProgressBar(total=len(STAGES), show_eta=False, id="progress")
             yield Label("starting", id="stage")
             yield LoadingIndicator()
@@ -41,7 +42,7 @@ class LoadingScreen(Screen):
 
     def set_stage(self, k: int, text: str | None = None) -> None:
         self.query_one("#progress", ProgressBar).update(progress=k)
-        self.query_one("#stage", Label).update(f"step {k + 1} of {len(STAGES)}: {text or STAGES[k]}")
+        self.query_one("#stage", Label).update(Text(f"step {k + 1} of {len(STAGES)}: {text or STAGES[k]}"))
 
 
 class ErrorScreen(Screen):
@@ -60,7 +61,7 @@ class ErrorScreen(Screen):
     def compose(self) -> ComposeResult:
         with Vertical():
             yield Label("cannot open this log", id="title")
-            yield Static(self.message, id="message")
+            yield Static(Text(self.message), id="message")
             yield Label("press q to quit")
 
 
@@ -101,7 +102,7 @@ class HelpScreen(ModalScreen):
             "escape closes this help",
         ]
         with VerticalScroll():
-            yield Static("\n".join(lines), id="help-text")
+            yield Static(Text("\n".join(lines)), id="help-text")
 
 
 class ConfirmScreen(ModalScreen[bool]):
@@ -119,7 +120,7 @@ class ConfirmScreen(ModalScreen[bool]):
 
     def compose(self) -> ComposeResult:
         with Vertical():
-            yield Static(self.question)
+            yield Static(Text(self.question))
             yield Label("y = yes   n = no")
 
     def action_answer(self, yes: bool) -> None:
@@ -142,7 +143,7 @@ class NoteScreen(ModalScreen[str | None]):
 
     def compose(self) -> ComposeResult:
         with Vertical():
-            yield Label(self.title_text)
+            yield Label(Text(self.title_text))
             yield Input(value=self.note, placeholder="note (e.g. washout, loose rock)", id="note", compact=True)
             yield Label("enter = save   escape = cancel")
 
@@ -203,7 +204,7 @@ class LimitsScreen(ModalScreen[Limits | None]):
                     yield Label(label)
                     yield Input(value="" if value is None else f"{value:g}", placeholder=placeholder, id=f"lim-{attr}", compact=True)
             yield Static("", id="limits-error")
-            yield Static(f"Design-speed figures: {CAUTION}", id="caution")
+            yield Static(Text(f"Design-speed figures: {CAUTION}"), id="caution")
 
     def on_mount(self) -> None:
         self.query_one(f"#lim-{LIMIT_FIELDS[0][0]}", Input).focus()
@@ -232,7 +233,7 @@ class LimitsScreen(ModalScreen[Limits | None]):
         try:
             limits = self._read()
         except ValueError as exc:
-            err.update(str(exc))
+            err.update(Text(str(exc)))
             return
         err.update("")
         if limits != self.current:
@@ -315,7 +316,7 @@ class ExportScreen(ModalScreen[tuple[str, bool] | None]):
                 raise InputError(None, "give a file name")
             export_format(path)
         except InputError as exc:
-            self.query_one("#export-error", Static).update(str(exc))
+            self.query_one("#export-error", Static).update(Text(str(exc)))
             return
         self.dismiss((path, self.force))
 
