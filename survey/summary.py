@@ -75,8 +75,8 @@ def format_summary(info: dict) -> str:
     else:
         lines.append("time        none in the log (speeds and accelerations unavailable)")
     lines += [
-        f"length      {info['path_length_m'] / 1000:.3f} km along the fixes "
-        f"({info['plan_length_m'] / 1000:.3f} km in plan; {info['stationary_fixes']} stationary fixes collapsed)",
+        f"length      {info['path_length_m'] / 1000:.3f} km through the fixes, {info['plan_length_m'] / 1000:.3f} km "
+        f"in plan (noise removed, {info['stationary_fixes']} stationary fixes collapsed)",
         f"extent      lat {b['lat_min']:.6f} .. {b['lat_max']:.6f}, lon {b['lon_min']:.6f} .. {b['lon_max']:.6f}",
     ]
     if b["height_min_m"] is not None:
