@@ -86,11 +86,38 @@ def run_profile(
     csv_columns: dict[str, str] | None = None,
     height_ref: str | None = None,
     origin: tuple[float, ...] | None = None,
-    **settings,
+    **profile_options,
 ) -> ProfileRun:
-    """Load a log and compute its station profile (``survey.profile_build.build_profile``)."""
+    """Load a log and compute its station profile (``load_log`` then ``compute_profile``)."""
+    loaded = load_log(path, fmt=fmt, csv_columns=csv_columns, height_ref=height_ref, gap_s=gap_s, crs=crs, origin=origin)
+    profile = compute_profile(loaded, step_m=step_m, **profile_options)
+    return ProfileRun(loaded.track, loaded.report, loaded.frame, profile)
+
+
+def compute_profile(
+    loaded: LoadedLog,
+    step_m: float = 1.0,
+    imu: str | None = None,
+    imu_time_offset_s: float | None = None,
+    imu_axes: str = "flu",
+    imu_accel_unit: str | None = None,
+    imu_gyro_unit: str | None = None,
+    **settings,
+):
+    """Station profile of a loaded log (``survey.profile_build.build_profile``).
+
+    With ``imu`` (an IMU CSV log) the path comes from GNSS/IMU fusion
+    (``survey.fusion_stage``) and the profile gains the IMU columns; without it nothing changes.
+    ``settings`` go to ``build_profile``.
+    """
     from .profile_build import build_profile
 
-    loaded = load_log(path, fmt=fmt, csv_columns=csv_columns, height_ref=height_ref, gap_s=gap_s, crs=crs, origin=origin)
-    profile = build_profile(loaded.track, loaded.enu_m, loaded.frame, step_m=step_m, **settings)
-    return ProfileRun(loaded.track, loaded.report, loaded.frame, profile)
+    if imu is None:
+        return build_profile(loaded.track, loaded.enu_m, loaded.frame, step_m=step_m, **settings)
+    from .fusion_stage import add_imu_fields, fuse_loaded
+
+    if not loaded.track.has_time:
+        raise InputError(loaded.track.source.path, "an IMU log can only be fused with a GNSS log that has times")
+    fused = fuse_loaded(loaded, imu, imu_time_offset_s, imu_axes, imu_accel_unit, imu_gyro_unit)
+    profile = build_profile(loaded.track, loaded.enu_m, loaded.frame, step_m=step_m, smoothed=fused, **settings)
+    return add_imu_fields(profile, fused)

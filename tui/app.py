@@ -196,13 +196,14 @@ class TrackApp(App):
         if self.given_profile is not None:
             profile = self.given_profile
         else:
-            from survey.pipeline import load_log
-            from survey.profile_build import build_profile
+            from survey.pipeline import compute_profile, load_log
 
             self.call_from_thread(self._stage, 0)
-            loaded = load_log(self.log_path, **self.load_kwargs)
+            read_kwargs = {k: v for k, v in self.load_kwargs.items() if not k.startswith("imu")}
+            imu_kwargs = {k: v for k, v in self.load_kwargs.items() if k.startswith("imu")}
+            loaded = load_log(self.log_path, **read_kwargs)
             self.call_from_thread(self._stage, 1, f"{STAGE_GEOMETRY} ({len(loaded.track)} fixes)")
-            profile = build_profile(loaded.track, loaded.enu_m, loaded.frame, step_m=self.step_m)
+            profile = compute_profile(loaded, step_m=self.step_m, **imu_kwargs)
             frame_text = short_frame(loaded.frame)
         self.timings["geometry_ready_s"] = time.perf_counter() - self._t_start
         self._t_geometry = time.perf_counter()

@@ -46,6 +46,39 @@ def add_log_arguments(parser: argparse.ArgumentParser) -> None:
     )
 
 
+def add_imu_arguments(parser: argparse.ArgumentParser) -> None:
+    """Add ``--imu`` and its reading options (fusion with an IMU log beside the GNSS log)."""
+    group = parser.add_argument_group("IMU log (optional)")
+    group.add_argument("--imu", metavar="IMU.csv", help="fuse an IMU CSV log (accelerometer and gyro) with the GNSS log")
+    group.add_argument(
+        "--imu-time-offset",
+        type=float,
+        metavar="S",
+        help="seconds added to the IMU times (needed when its time column is relative, time_s)",
+    )
+    group.add_argument(
+        "--imu-axes",
+        choices=("flu", "frd"),
+        default="flu",
+        help="IMU body axes: x forward, y left, z up (flu, default) or forward-right-down (frd)",
+    )
+    group.add_argument("--imu-accel-unit", choices=("mps2", "g"), help="unit of accelerometer columns without a suffix")
+    group.add_argument("--imu-gyro-unit", choices=("radps", "dps"), help="unit of gyro columns without a suffix")
+
+
+def imu_kwargs(args: argparse.Namespace) -> dict:
+    """``run_profile`` keyword arguments for the IMU options (empty without ``--imu``)."""
+    if not getattr(args, "imu", None):
+        return {}
+    return {
+        "imu": args.imu,
+        "imu_time_offset_s": args.imu_time_offset,
+        "imu_axes": args.imu_axes,
+        "imu_accel_unit": args.imu_accel_unit,
+        "imu_gyro_unit": args.imu_gyro_unit,
+    }
+
+
 def log_kwargs(args: argparse.Namespace) -> dict:
     """Pipeline keyword arguments from parsed options (see ``survey.pipeline.load_log``)."""
     return {

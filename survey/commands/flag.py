@@ -18,7 +18,7 @@ from ..errors import InputError
 from ..export import STDOUT, RunInfo, export_format, write_findings
 from ..marks import MarkStore, file_sha256, sidecar_path
 from ..sections import KIND_DESIGN, KINDS, all_sections, marks_outside
-from .common import add_log_arguments, log_kwargs, positive_float
+from .common import add_imu_arguments, add_log_arguments, imu_kwargs, log_kwargs, positive_float
 
 
 def _fraction(text: str) -> float:
@@ -62,6 +62,7 @@ def add_parser(subparsers) -> None:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     add_log_arguments(p)
+    add_imu_arguments(p)
     lim = p.add_argument_group("limits")
     lim.add_argument("--preset", choices=list(PRESETS), metavar="NAME", help="start from a preset (listed below)")
     lim.add_argument("--sharp-radius", type=positive_float, metavar="M", help="flag radius below M metres")
@@ -154,7 +155,7 @@ def run(args: argparse.Namespace) -> int:
 
     from ..pipeline import run_profile
 
-    result = run_profile(args.log, step_m=args.step, **log_kwargs(args))
+    result = run_profile(args.log, step_m=args.step, **log_kwargs(args), **imu_kwargs(args))
     profile = result.profile if hasattr(result, "profile") else result[3]
     frame = result.frame if hasattr(result, "frame") else result[2]
 

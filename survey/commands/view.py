@@ -11,7 +11,7 @@ import sys
 
 from ..design import PRESETS, Limits, preset_limits
 from ..errors import InputError
-from .common import add_log_arguments, log_kwargs, positive_float
+from .common import add_imu_arguments, add_log_arguments, imu_kwargs, log_kwargs, positive_float
 
 
 def add_parser(subparsers) -> None:
@@ -24,6 +24,7 @@ def add_parser(subparsers) -> None:
         "in the viewer for every key.",
     )
     add_log_arguments(p)
+    add_imu_arguments(p)
     add_view_arguments(p)
     p.set_defaults(run=run)
 
@@ -73,4 +74,4 @@ def run(args: argparse.Namespace) -> int:
 
     limits = view_limits(args, DEFAULT_LIMITS)
     require_terminal()
-    return open_viewer(args.log, log_kwargs(args), args.step, limits)
+    return open_viewer(args.log, {**log_kwargs(args), **imu_kwargs(args)}, args.step, limits)

@@ -1,0 +1,77 @@
+"""Pipeline stage for an IMU log beside the GNSS log: read, check, fuse, and add the IMU columns.
+
+The fused path (``survey.imu.fuse.FusedPath``) replaces the GNSS-only smoother inside
+``build_profile`` (``smoothed=``), so curvature, torsion and the Frenet frame come from the same
+geometry code. What only an IMU can tell -- bank (roll), its rate per metre, the gyro's own plan
+curvature, pitch, and where the IMU carried the path alone -- is added here at the stations.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+
+import numpy as np
+
+from .imu.fuse import FusedPath, fuse
+from .imu.reader import read_imu_csv
+from .pipeline import LoadedLog
+from .stations import Profile
+
+
+def fuse_loaded(
+    loaded: LoadedLog,
+    imu_path: str,
+    imu_time_offset_s: float | None = None,
+    imu_axes: str = "flu",
+    imu_accel_unit: str | None = None,
+    imu_gyro_unit: str | None = None,
+    clock_offset_s: float | None = None,
+) -> FusedPath:
+    """Fuse an IMU CSV log with a loaded GNSS log.
+
+    Parameters
+    ----------
+    imu_time_offset_s
+        Seconds added to the IMU file's times (needed for relative ``time_s`` columns).
+    imu_axes
+        ``"flu"`` (x forward, y left, z up) or ``"frd"`` (forward, right, down).
+    clock_offset_s
+        Remaining GNSS-IMU clock offset, s; ``None`` estimates it from the data.
+    """
+    imu = read_imu_csv(imu_path, time_offset_s=imu_time_offset_s, axes=imu_axes,
+                       accel_unit=imu_accel_unit, gyro_unit=imu_gyro_unit)
+    track = loaded.track
+    enu = loaded.enu_m.copy()
+    if track.suspect is not None:
+        enu[track.suspect] = np.nan  # multipath jumps take no part in the fusion
+    keep = np.isfinite(enu[:, 0])
+    return fuse(track.time_s[keep], enu[keep],
+                None if track.accuracy_m is None else track.accuracy_m[keep],
+                imu, time_offset_s=clock_offset_s)
+
+
+def add_imu_fields(profile: Profile, fused: FusedPath) -> Profile:
+    """Return ``profile`` with bank, twist, gyro plan curvature, pitch and outage at its stations."""
+    t = profile.time_s
+    if len(profile) == 0:
+        return profile
+    inside = np.isfinite(t) & (t >= fused.time_s[0]) & (t <= fused.time_s[-1])
+    tt = np.where(inside, t, fused.time_s[0])
+
+    def at(values: np.ndarray) -> np.ndarray:
+        return np.where(inside, fused.interp(np.asarray(values, float), tt), np.nan)
+
+    outage = at(fused.outage.astype(float)) >= 0.5
+    settings = dict(profile.settings)
+    settings.update({f"imu_{k}": v for k, v in fused.settings.items()})
+    return replace(
+        profile,
+        bank_deg=np.degrees(at(fused.bank_rad)),
+        bank_sd_deg=np.degrees(at(fused.bank_sd_rad)),
+        twist_deg_per_m=np.degrees(at(fused.bank_rate_per_m)),
+        gyro_plan_curvature_per_m=at(fused.gyro_plan_curvature_per_m),
+        pitch_deg=np.degrees(at(fused.pitch_rad)),
+        imu_outage=outage & inside,
+        settings=settings,
+        messages=tuple(profile.messages) + tuple(fused.messages),
+    )
