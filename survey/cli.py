@@ -1,6 +1,9 @@
-"""``trackframe`` console command: argument parsing and the one place errors become exit codes.
+"""Command-line front of the headless commands: argument parsing and the one place errors become
+exit codes.
 
 Exit status: 0 success, 1 bad input (one line on stderr naming the file and record), 2 usage.
+The ``trackframe`` console script is ``tui.cli.main``, which adds the commands that open the
+viewer (``demo``, ``view``); this module never imports ``tui``.
 """
 
 from __future__ import annotations
@@ -8,15 +11,18 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+from types import ModuleType
+from typing import Sequence
 
 from . import __version__
 from .errors import InputError
 
 #: Sub-command modules under ``survey.commands``, in the order ``--help`` lists them.
-COMMANDS = ("demo", "view", "info", "profile", "flag", "batch")
+COMMANDS = ("info", "profile", "flag", "batch")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(extra: Sequence[ModuleType] = ()) -> argparse.ArgumentParser:
+    """The argument parser; ``extra`` command modules (``add_parser``/``run``) are listed first."""
     parser = argparse.ArgumentParser(
         prog="trackframe",
         description="Curvature, radius and torsion along the chainage of GNSS/IMU survey logs, "
@@ -24,6 +30,8 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"trackframe {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    for module in extra:
+        module.add_parser(sub)
     for name in COMMANDS:
         try:
             module = importlib.import_module(f"survey.commands.{name}")
@@ -35,9 +43,9 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def main(argv: list[str] | None = None) -> int:
+def main(argv: list[str] | None = None, extra: Sequence[ModuleType] = ()) -> int:
     """Run the command line; returns the exit status (see module doc)."""
-    parser = build_parser()
+    parser = build_parser(extra)
     args = parser.parse_args(argv)
     try:
         return int(args.run(args) or 0)

@@ -8,7 +8,7 @@ from pathlib import Path
 
 import pytest
 
-from survey.cli import main
+from tui.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "demo_tracks"
@@ -93,22 +93,23 @@ def test_usage_errors_exit_2(capsys):
 
 def test_every_command_has_help(capsys):
     from survey.cli import COMMANDS, build_parser
+    from tui.commands import demo, view
 
-    parser = build_parser()
+    parser = build_parser(extra=(demo, view))
     available = parser._subparsers._group_actions[0].choices  # argparse keeps them here
     for name in available:
         with pytest.raises(SystemExit) as exc:
             main([name, "--help"])
         assert exc.value.code == 0
         assert "usage: trackframe" in capsys.readouterr().out
-    assert set(available) <= set(COMMANDS)
+    assert set(available) == set(COMMANDS) | {"demo", "view"}
 
 
 def test_console_script_reports_errors_without_traceback(tmp_path):
     garbage = tmp_path / "noise.bin"
     garbage.write_bytes(os.urandom(4096))
     proc = subprocess.run(
-        [sys.executable, "-m", "survey.cli", "info", str(garbage)], capture_output=True, text=True, cwd=ROOT
+        [sys.executable, "-m", "tui.cli", "info", str(garbage)], capture_output=True, text=True, cwd=ROOT
     )
     assert proc.returncode == 1
     assert "Traceback" not in proc.stderr and proc.stderr.count("\n") == 1
@@ -126,3 +127,19 @@ def test_demo_runs_on_the_bundled_log(capsys):
     code, out, err = run_cli(capsys, "demo")
     assert code == 0, err
     assert "ridge_trail_phone.gpx" in out
+
+
+def test_the_computing_package_never_imports_the_interface():
+    # Architecture rule (DEVELOPERS.md): survey/ never imports tui/.
+    import ast
+
+    offenders = []
+    for path in (ROOT / "survey").rglob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text())):
+            names = []
+            if isinstance(node, ast.Import):
+                names = [a.name for a in node.names]
+            elif isinstance(node, ast.ImportFrom) and node.level == 0 and node.module:
+                names = [node.module]
+            offenders += [f"{path.name}: {n}" for n in names if n == "tui" or n.startswith("tui.")]
+    assert offenders == []

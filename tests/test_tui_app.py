@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 
 from survey import synthetic as syn
-from survey.cli import main
+from tui.cli import main
 from survey.design import Limits
 from survey.frame import LocalFrame
 from survey.logwrite import csv_text, write_text

@@ -11,9 +11,9 @@ import os
 import sys
 from pathlib import Path
 
-from ..errors import InputError
-from ..pipeline import load_log
-from ..summary import format_summary, summarize
+from survey.errors import InputError
+from survey.pipeline import load_log
+from survey.summary import format_summary, summarize
 
 #: Demo log opened when no name is given.
 DEFAULT_DEMO = "ridge_trail_phone.gpx"
@@ -75,9 +75,9 @@ def run(args: argparse.Namespace) -> int:
     if args.text or not (sys.stdin.isatty() and sys.stdout.isatty()):
         print(format_summary(summarize(load_log(str(chosen)))))
         return 0
-    from tui.app import DEFAULT_LIMITS
+    from ..app import DEFAULT_LIMITS
 
-    from ..design import preset_limits
+    from survey.design import preset_limits
     from .view import open_viewer, view_limits
 
     preset = DEMO_PRESETS.get(chosen.name)

@@ -1,7 +1,7 @@
 """``trackframe view LOG``: open a log in the terminal viewer (charts, plan, sections, marks).
 
-The viewer itself lives in the ``tui`` package and is imported only when this command runs, so
-the computing core never depends on the interface.
+The Textual app is imported only when the command runs, so ``trackframe info`` and friends start
+without loading it.
 """
 
 from __future__ import annotations
@@ -9,9 +9,9 @@ from __future__ import annotations
 import argparse
 import sys
 
-from ..design import PRESETS, Limits, preset_limits
-from ..errors import InputError
-from .common import add_imu_arguments, add_log_arguments, imu_kwargs, log_kwargs, positive_float
+from survey.design import PRESETS, Limits, preset_limits
+from survey.errors import InputError
+from survey.commands.common import add_imu_arguments, add_log_arguments, imu_kwargs, log_kwargs, positive_float
 
 
 def add_parser(subparsers) -> None:
@@ -60,7 +60,7 @@ def require_terminal() -> None:
 def open_viewer(log: str, load_kwargs: dict, step_m: float, limits: Limits) -> int:
     """Run the viewer until the user quits; a log that cannot be opened becomes an InputError
     after the screen is restored (so the shell also gets the one-line reason and status 1)."""
-    from tui.app import TrackApp
+    from ..app import TrackApp
 
     app = TrackApp(log_path=log, load_kwargs=load_kwargs, step_m=step_m, limits=limits)
     app.run()
@@ -70,7 +70,7 @@ def open_viewer(log: str, load_kwargs: dict, step_m: float, limits: Limits) -> i
 
 
 def run(args: argparse.Namespace) -> int:
-    from tui.app import DEFAULT_LIMITS
+    from ..app import DEFAULT_LIMITS
 
     limits = view_limits(args, DEFAULT_LIMITS)
     require_terminal()
