@@ -32,7 +32,7 @@ TORSION_LOW_CURVATURE = 1  # kappa not significantly above zero: the osculating 
 TORSION_NO_DATA = 2  # station lies in a gap / outside the smoothed data
 TORSION_REASONS = {
     TORSION_OK: "",
-    TORSION_LOW_CURVATURE: "curvature too small for torsion to be defined",
+    TORSION_LOW_CURVATURE: "curvature not clearly above its uncertainty: no osculating plane",
     TORSION_NO_DATA: "no data (gap or outage)",
 }
 

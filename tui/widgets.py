@@ -75,7 +75,7 @@ STYLES = {
 }
 
 #: Why torsion is undefined, short enough for the readout.
-TORSION_SHORT = {TORSION_LOW_CURVATURE: "κ too small", TORSION_NO_DATA: "no data (gap)"}
+TORSION_SHORT = {TORSION_LOW_CURVATURE: "κ not above its σ", TORSION_NO_DATA: "no data (gap)"}
 
 HEIGHT_SHORT = {HEIGHT_ELLIPSOID: "ellipsoidal", HEIGHT_MSL: "above MSL", HEIGHT_NONE: "none", "unknown": "ref. unknown"}
 
