@@ -9,9 +9,10 @@ The scenes are invented; the places and crews do not exist:
 * ridge_trail_phone.gpx -- the Fernhollow trail crew walks the new Saddleback Ridge path with a
   phone (GPX 1.1, 1 Hz, metre-level error): tight switchbacks up the flank, a stop at the cairn,
   then the winding ridge.
-* van_route_tunnel.nmea -- the Tey Valley survey van drives the Orrin bypass at 60 km/h with a
-  dual-frequency receiver (NMEA GGA + RMC, 5 Hz) through the short Carrow tunnel, where there
-  are no fixes for about 20 s. A few sentences are damaged, as in real logs.
+* van_route_tunnel.nmea (+ van_route_tunnel_imu.csv) -- the Tey Valley survey van waits at the
+  depot gate, then drives the Orrin bypass at 60 km/h with a dual-frequency receiver (NMEA GGA +
+  RMC, 5 Hz) and a consumer MEMS IMU (100 Hz) through the short Carrow tunnel, where there are no
+  fixes for about 20 s. Curves are superelevated. A few sentences are damaged, as in real logs.
 * drone_mast_orbit.csv -- the Skylark inspection crew flies an RTK drone in a climbing orbit
   around the Tollan Hill mast (CSV, 10 Hz, centimetre-level error, ellipsoidal heights).
 
@@ -31,6 +32,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from survey import synthetic as syn  # noqa: E402
 from survey.frame import LocalFrame  # noqa: E402
+from survey.imu.synth import MPU9250, imu_truth, make_motion, simulate_imu, superelevation_bank, write_imu_csv  # noqa: E402
 from survey.logwrite import csv_text, gpx_text, nmea_text, write_text  # noqa: E402
 from survey.track import HEIGHT_ELLIPSOID, HEIGHT_MSL  # noqa: E402
 
@@ -77,21 +79,29 @@ def van_route(out: Path) -> Path:
     grades = [(500.0, 0.03, 0.03), (250.0, 0.03, -0.02), (total - 750.0, -0.02, -0.02)]
     curve = syn.alignment_curve(pieces, grades, start_heading_rad=np.radians(-20.0))
     speed = 60 / 3.6
-    traj = syn.sample_path(curve, speed, 5.0, jitter=0.02, rng=rng, t0_s=_t0("2026-10-03T13:40:05"),
-                           name="Orrin bypass")
-    fixes = syn.add_gnss_error(traj, "dual", rng)
-    tunnel_start_s = (300 + 60 + 220 + 60 + 120) / speed
+    t0 = _t0("2026-10-03T13:40:05")
+    # The van waits 10 s at the depot gate, then pulls away; its IMU logs at 100 Hz. Curves are
+    # superelevated (e = 15 m x curvature, at most 8 %).
+    motion = make_motion(curve, speed, static_s=10.0, ramp_s=6.0,
+                         bank=superelevation_bank(15.0, e_max=0.08), t0_s=t0)
+    truth = imu_truth(motion, 100.0)
+    imu, _ = simulate_imu(truth, MPU9250, rng)
+    fix_times = t0 + np.arange(0.0, motion.duration_s, 0.2) + rng.uniform(-0.004, 0.004)
+    fixes = syn.add_gnss_error(truth.trajectory(fix_times), "dual", rng)
+    tunnel_start_s = 10.0 + 3.0 + (300 + 60 + 220 + 60 + 120) / speed
     fixes = syn.add_outage(fixes, tunnel_start_s, 20.0)
     frame = LocalFrame.enu(55.93210, -4.31780, 95.0)
     track = syn.fixes_to_track(fixes, frame.inverse, height_ref=HEIGHT_ELLIPSOID, with_accuracy=False)
-    track = track.with_arrays(speed_mps=np.full(len(track), speed))
+    speeds = np.linalg.norm(truth.trajectory(fixes.time_s).velocity_mps, axis=1)
+    track = track.with_arrays(speed_mps=speeds)
     text = nmea_text(track, geoid_separation_m=52.4)
     lines = text.split("\r\n")
-    for i in (101, 2203, 4107):  # damage a few sentences the way a serial line does
+    for i in (101, 503, 907):  # damage a few sentences the way a serial line does
         if i < len(lines) and len(lines[i]) > 20:
             lines[i] = lines[i][:15] + "#" + lines[i][16:]
     path = out / "van_route_tunnel.nmea"
     write_text(str(path), "\r\n".join(lines))
+    write_imu_csv(str(out / "van_route_tunnel_imu.csv"), imu)
     return path
 
 
