@@ -29,12 +29,21 @@ FloatArray = NDArray[np.float64]
 
 
 def _dot(a: FloatArray, b: FloatArray) -> FloatArray:
-    return np.einsum("...i,...i->...", a, b)
+    return a[..., 0] * b[..., 0] + a[..., 1] * b[..., 1] + a[..., 2] * b[..., 2]
+
+
+def _cross(a: FloatArray, b: FloatArray) -> FloatArray:
+    """a x b over the last axis (3), written out: np.cross is slow on long arrays."""
+    out = np.empty(np.broadcast_shapes(a.shape, b.shape))
+    out[..., 0] = a[..., 1] * b[..., 2] - a[..., 2] * b[..., 1]
+    out[..., 1] = a[..., 2] * b[..., 0] - a[..., 0] * b[..., 2]
+    out[..., 2] = a[..., 0] * b[..., 1] - a[..., 1] * b[..., 0]
+    return out
 
 
 def curvature_torsion(v: FloatArray, a: FloatArray, j: FloatArray) -> tuple[FloatArray, FloatArray]:
     """kappa (1/m, >= 0) and tau (1/m, signed; NaN where v x a = 0) from (..., 3) derivatives."""
-    c = np.cross(v, a)
+    c = _cross(v, a)
     c2 = _dot(c, c)
     speed = np.sqrt(_dot(v, v))
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -52,14 +61,16 @@ def frenet(v: FloatArray, a: FloatArray, j: FloatArray) -> dict[str, FloatArray]
     ``curvature_per_m``, ``torsion_per_m``, ``plan_curvature_per_m``, ``grade`` (fraction),
     ``vertical_curvature_per_m``.
     """
-    kappa, tau = curvature_torsion(v, a, j)
     speed = np.sqrt(_dot(v, v))
-    c = np.cross(v, a)
-    cn = np.sqrt(_dot(c, c))
+    c = _cross(v, a)
+    c2 = _dot(c, c)
+    cn = np.sqrt(c2)
     with np.errstate(invalid="ignore", divide="ignore"):
+        kappa = cn / speed**3
+        tau = np.where(c2 > 0, _dot(c, j) / np.where(c2 > 0, c2, 1.0), np.nan)
         T = v / speed[..., None]
         B = c / cn[..., None]
-        N = np.cross(B, T)
+        N = _cross(B, T)
         vh2 = v[..., 0] ** 2 + v[..., 1] ** 2
         vh = np.sqrt(vh2)
         plan = (v[..., 0] * a[..., 1] - v[..., 1] * a[..., 0]) / vh**3

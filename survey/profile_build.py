@@ -39,7 +39,8 @@ from .stations import TORSION_LOW_CURVATURE, TORSION_NO_DATA, TORSION_OK, Profil
 from .track import HEIGHT_NONE, Track
 
 DEFAULTS = {
-    "n_samples": 32,
+    "n_samples": 8,
+    "sd_pool_knots": 4,
     "seed": 0,
     "wander_tau_s": 60.0,
     "vertical_factor": 1.7,
@@ -166,7 +167,7 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, *
             messages.append(f"segment {sid}: {rejected} fixes rejected as outliers")
     if not parts:
         return empty_profile(track, frame, step_m, cfg, messages)
-    cols = {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+    cols = parts[0] if len(parts) == 1 else {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
     lat, lon, h = frame.inverse(cols["east_m"], cols["north_m"], cols["up_m"] if has_height else np.zeros(len(cols["east_m"])))
     if not has_height:
         h = np.full(len(lat), np.nan)
@@ -235,46 +236,65 @@ def _fit_models(stretches, use_acc, has_height, cfg):
 
 def _uncertainty(sm, t_start, t_end, step_m, cfg, rng) -> dict:
     """1-sigma of kappa, tau and of the velocity from ``n_samples`` repeated-noise estimates
-    (``Smoothed.draw``), on a grid of times spaced twice the finest knot interval (the spreads
-    vary on the smoother's scale, four knot intervals or more) and interpolated from there.
-    Drawn a few samples at a time so memory stays bounded on long logs."""
-    h = min(g.h for g in sm.groups)
-    m = max(int(np.ceil((t_end - t_start) / (2.0 * h))) + 1, 2)
-    te = np.linspace(t_start, t_end, m)
+    (``Smoothed.draw``), on a grid of times spaced like the finest knots.
+
+    At every grid time each draw gives a deviation from the estimate (kappa, tau, velocity).
+    The error of the smoother is correlated over its own scale (two knot intervals), so nearby
+    grid times add little new information; the squared deviations (kappa, velocity) and the
+    median absolute torsion deviation (heavy-tailed where kappa is small; / 0.6745 for a
+    Gaussian sigma) are therefore averaged over a moving window of ``sd_pool_knots`` grid points
+    on either side -- about two smoothing scales -- which pools several independent error
+    realisations per draw. A few draws then give a stable 1-sigma and the cost stays a small
+    multiple of one solve (``benchmarks/bench_profile.py``). Drawn a few samples at a time so
+    memory stays bounded on long logs."""
+    from scipy.ndimage import uniform_filter1d
+
+    fine = min(sm.groups, key=lambda g: g.h)
+    if getattr(fine, "states", None) is not None:  # the finest knots themselves: no interpolation
+        te = fine.t0 + fine.h * np.arange(len(fine.states))
+    else:
+        te = np.linspace(t_start, t_end, max(int(np.ceil((t_end - t_start) / fine.h)) + 1, 2))
+    m = len(te)
     ns = int(cfg["n_samples"])
-    kap = np.empty((ns, m))
-    tor = np.empty((ns, m))
-    vel = np.empty((ns, m, 3))
-    block = 8
+    est = sm.at(te)
+    g0 = frenet(est[:, :, 1], est[:, :, 2], est[:, :, 3])
+    k0, t0 = g0["curvature_per_m"], np.nan_to_num(g0["torsion_per_m"])
+    dk2 = np.zeros(m)
+    dv2 = np.zeros(m)
+    dtau = np.empty((ns, m))
+    block = 4
     for a in range(0, ns, block):
         b = min(ns, a + block)
         smp = sm.samples_at(sm.draw(b - a, rng), te)
         g = frenet(smp[..., 1], smp[..., 2], smp[..., 3])
-        kap[a:b] = g["curvature_per_m"]
-        tor[a:b] = np.nan_to_num(g["torsion_per_m"])
-        vel[a:b] = smp[..., 1]
-    # torsion samples have heavy tails where kappa is small: half the central 68 % range
-    q16, q84 = np.percentile(tor, [15.87, 84.13], axis=0)
+        dk2 += np.sum((g["curvature_per_m"] - k0) ** 2, axis=0)
+        dtau[a:b] = np.abs(np.nan_to_num(g["torsion_per_m"]) - t0)
+        dv2 += np.sum((smp[..., 1] - est[None, :, :, 1]) ** 2, axis=(0, 2))
+        del smp, g
+    size = 2 * int(cfg["sd_pool_knots"]) + 1
+
+    def pool(x):
+        return uniform_filter1d(x, size, mode="nearest") if size > 1 and len(x) > 1 else x
+
     return {
         "t": te,
-        "kappa_sd": np.std(kap, axis=0, ddof=1),
-        "tau_sd": 0.5 * (q84 - q16),
-        "speed_sd": np.sqrt(np.sum(np.var(vel, axis=0, ddof=1), axis=1)),
+        "kappa_sd": np.sqrt(pool(dk2 / ns)),
+        "tau_sd": pool(np.median(dtau, axis=0)) / 0.6745,
+        "speed_sd": np.sqrt(pool(dv2 / ns)),
     }
 
 
 def _chainage_table(sm, t_start, t_end, unc, k_stop):
-    """(t, s, stop times): chainage by the trapezoid rule on the smoothed 3D speed, on a grid of a quarter of
-    the finest knot interval (the speed is a smooth polynomial between knots, so the error is far
-    below a station step). Where the speed is not significantly above zero (below ``k_stop``
-    times its 1-sigma, from the repeated-noise estimates) the mover is taken as stopped and the
-    chainage does not advance: kappa is per metre of path and is never evaluated in a stop."""
+    """(t, s, stop times): chainage by the trapezoid rule on the smoothed 3D speed, on a grid of
+    half the finest knot interval (the speed is a smooth polynomial between knots, so the error
+    is far below a station step). Where the speed is not significantly above zero (below
+    ``k_stop`` times its 1-sigma, from the repeated-noise estimates) the mover is taken as
+    stopped and the chainage does not advance: kappa is per metre of path and is never
+    evaluated in a stop."""
     h = min(g.h for g in sm.groups)
-    ng = int(np.ceil(4.0 * (t_end - t_start) / h)) + 1
+    ng = int(np.ceil(2.0 * (t_end - t_start) / h)) + 1
     tg = np.linspace(t_start, t_end, ng)
-    speed = np.empty(ng)
-    for a in range(0, ng, 500_000):
-        speed[a : a + 500_000] = np.linalg.norm(sm.at(tg[a : a + 500_000])[:, :, 1], axis=1)
+    speed = np.linalg.norm(sm.at(tg)[:, :, 1], axis=1)
     v_min = k_stop * np.interp(tg, unc["t"], unc["speed_sd"])
     stopped = speed <= v_min
     speed = np.where(stopped, 0.0, speed)
@@ -284,7 +304,24 @@ def _chainage_table(sm, t_start, t_end, unc, k_stop):
 
 
 def _stations(sm, ts, chain, sid, has_time, has_height, unc, t_stop, cfg) -> dict:
-    """All per-station arrays of one segment."""
+    """All per-station arrays of one segment, computed ``station_chunk`` stations at a time into
+    preallocated columns (bounded temporaries on long logs)."""
+    step = int(cfg["station_chunk"])
+    out: dict = {}
+    for a in range(0, len(ts), step):
+        part = _station_chunk(sm, ts[a : a + step], chain[a : a + step], sid, has_time, has_height, unc, cfg)
+        if not out:
+            out = {k: np.empty((len(ts),) + v.shape[1:], v.dtype) for k, v in part.items()}
+        for k, v in part.items():
+            out[k][a : a + step] = v
+    if has_time:
+        slow = _near_stops(ts, out["speed_mps"] < cfg["slow_sigmas"] * np.interp(ts, unc["t"], unc["speed_sd"]), t_stop)
+        if slow.any() and not slow.all():
+            _hold_geometry(out, slow)
+    return out
+
+
+def _station_chunk(sm, ts, chain, sid, has_time, has_height, unc, cfg) -> dict:
     st = sm.at(ts)
     g = frenet(st[:, :, 1], st[:, :, 2], st[:, :, 3])
     n = len(ts)
@@ -330,10 +367,6 @@ def _stations(sm, ts, chain, sid, has_time, has_height, unc, t_stop, cfg) -> dic
         "torsion_reason": reason,
         "segment": np.full(n, sid, np.int32),
     }
-    if has_time:
-        slow = _near_stops(ts, g["speed"] < cfg["slow_sigmas"] * np.interp(ts, unc["t"], unc["speed_sd"]), t_stop)
-        if slow.any() and not slow.all():
-            _hold_geometry(out, slow)
     return out
 
 
@@ -394,7 +427,7 @@ def _settings(cfg, step_m, model_h: NoiseModel, model_v: NoiseModel | None, use_
     if model_v is not None:
         out.update(snap_psd_v_m2_s7=model_v.snap_psd, var_scale_v=model_v.var_scale,
                    wander_var_v_m2=model_v.wander_var_m2)
-    for k in ("n_samples", "seed", "wander_tau_s", "vertical_factor", "stop_sigmas", "slow_sigmas", "kappa_sigmas", "accuracy_cap", "robust_iterations"):
+    for k in ("n_samples", "sd_pool_knots", "seed", "wander_tau_s", "vertical_factor", "stop_sigmas", "slow_sigmas", "kappa_sigmas", "accuracy_cap", "robust_iterations"):
         out[k] = cfg[k]
     return out
 
