@@ -55,7 +55,7 @@ DEFAULTS = {
 }
 
 
-def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, **settings) -> Profile:
+def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, smoothed=None, **settings) -> Profile:
     """Geometry at stations every ``step_m`` metres of chainage.
 
     Parameters
@@ -68,6 +68,13 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, *
         The run's ``LocalFrame`` (``inverse`` and ``describe`` are used).
     step_m
         Station spacing along the chainage, metres (> 0).
+    smoothed
+        None: smooth the fixes here. A ``survey.imu.fuse.FusedPath``: take the path from the
+        GNSS/IMU fusion instead -- no noise fit and no per-segment smoothing; its time span is one
+        stretch (the IMU bridges gaps between segments), and the 1-sigma columns come from its
+        ``draw``/``samples_at``. Stations inside its GNSS outages keep their geometry (the IMU
+        measured it); the outages are listed in ``settings['imu_outages_s']`` and in
+        ``messages`` (``outage_mask`` gives the per-station flag).
     settings
         Overrides of ``DEFAULTS`` (see the module docstring).
 
@@ -104,6 +111,9 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, *
     else:
         base_h, base_v = np.ones(n), np.ones(n)
 
+    if smoothed is not None:
+        return _profile_from_fused(track, frame, step_m, smoothed, has_height, cfg, messages)
+
     # --- stretches: one per segment, with a strictly increasing parameter --------------------
     stretches = []
     seg_ids = track.segment[ok]
@@ -135,15 +145,29 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, *
         messages.append("too few heights to smooth; heights ignored")
 
     # --- smooth each segment, place stations ---------------------------------------------------
+    def smoothed_stretches():
+        for sid, t, y, bh, bv, scr_h, scr_v in stretches:
+            yield sid, t[0], t[-1], smooth_stretch(t, y, bh, bv, model_h, model_v if has_height else None, scr_h,
+                                                   scr_v, robust_iterations=cfg["robust_iterations"])
+
+    cols, knots, lengths = _place_stations(smoothed_stretches(), step_m, has_time, has_height, cfg, messages)
+    if cols is None:
+        return empty_profile(track, frame, step_m, cfg, messages)
+    settings_out = _settings(cfg, step_m, model_h, model_v if has_height else None, use_acc, has_time, knots)
+    return _finish(track, frame, step_m, cols, has_height, settings_out, lengths, messages)
+
+
+def _place_stations(items, step_m, has_time, has_height, cfg, messages):
+    """Stations of every smoothed stretch ``(segment id, t_first, t_last, smoothed path)``, with
+    continuous chainage; returns (columns or None, knot spacings, stretch lengths)."""
     rng = np.random.default_rng(cfg["seed"])
     parts = []
     s_offset = 0.0
     last_pos = None
     knots = []
     lengths: list[float] = []
-    for sid, t, y, bh, bv, scr_h, scr_v in stretches:
-        sm = smooth_stretch(t, y, bh, bv, model_h, model_v if has_height else None, scr_h, scr_v,
-                            robust_iterations=cfg["robust_iterations"])
+    for sid, t_first, t_last, sm in items:
+        t = np.array([t_first, t_last])
         knots.append([g.h for g in sm.groups])
         unc = _uncertainty(sm, t[0], t[-1], step_m, cfg, rng)
         k_stop = cfg["stop_sigmas"] if has_time else 0.0
@@ -166,19 +190,66 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, *
         if rejected:
             messages.append(f"segment {sid}: {rejected} fixes rejected as outliers")
     if not parts:
-        return empty_profile(track, frame, step_m, cfg, messages)
+        return None, knots, lengths
     cols = parts[0] if len(parts) == 1 else {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+    return cols, knots, lengths
+
+
+def _finish(track, frame, step_m, cols, has_height, settings_out, lengths, messages) -> Profile:
+    """Geodetic station positions and the Profile record."""
     lat, lon, h = frame.inverse(cols["east_m"], cols["north_m"], cols["up_m"] if has_height else np.zeros(len(cols["east_m"])))
     if not has_height:
         h = np.full(len(lat), np.nan)
         cols["up_m"] = np.full(len(lat), np.nan)
-    settings_out = _settings(cfg, step_m, model_h, model_v if has_height else None, use_acc, has_time, knots)
     settings_out["path_length_m"] = float(sum(lengths))
     return Profile(
         lat_deg=np.asarray(lat), lon_deg=np.asarray(lon), height_m=np.asarray(h),
         step_m=float(step_m), height_ref=track.height_ref, frame=frame.describe(),
         settings=settings_out, messages=tuple(messages), **cols,
     )
+
+
+def _profile_from_fused(track, frame, step_m, fp, has_height, cfg, messages) -> Profile:
+    """Stations along a GNSS/IMU fused path (``survey.imu.fuse.FusedPath``): one stretch over its
+    whole time span; outages bridged by the IMU keep their geometry and are reported."""
+    messages = list(messages) + [f"fusion: {m}" for m in fp.messages]
+    t = np.asarray(fp.time_s, float)
+    if len(t) < 2 or not t[-1] > t[0]:
+        messages.append("fused path shorter than two samples; nothing to measure")
+        return empty_profile(track, frame, step_m, cfg, messages)
+    sid = int(track.segment[0]) if len(track) else 0
+    cols, knots, lengths = _place_stations([(sid, t[0], t[-1], fp)], step_m, True, has_height, cfg, messages)
+    if cols is None:
+        return empty_profile(track, frame, step_m, cfg, messages)
+    outages = tuple((float(a), float(b)) for a, b in fp.outages)
+    inside = outage_mask(cols["time_s"], outages)
+    if inside.any():
+        s = cols["chainage_m"][inside]
+        messages.append(f"{int(inside.sum())} stations ({s.min():.0f}-{s.max():.0f} m) lie in GNSS outages bridged "
+                        f"by the IMU: geometry from the inertial path")
+    settings_out = {
+        "tool_version": __version__,
+        "method": "GNSS/IMU fused path (survey.imu.fuse), no GNSS-only smoothing",
+        "parameter": "time",
+        "step_m": float(step_m),
+        "chainage": "one stretch over the fused time span (the IMU bridges gaps)",
+        "knot_spacing": f"{knots[0][0]:.4g}",
+        "imu_outages_s": ";".join(f"{a:.3f}-{b:.3f}" for a, b in outages) or "none",
+        "imu_outage_stations": int(inside.sum()),
+        **{f"fusion_{k}": v for k, v in fp.settings.items()},
+    }
+    for k in ("n_samples", "sd_pool_knots", "seed", "stop_sigmas", "slow_sigmas", "kappa_sigmas"):
+        settings_out[k] = cfg[k]
+    return _finish(track, frame, step_m, cols, has_height, settings_out, lengths, messages)
+
+
+def outage_mask(time_s: np.ndarray, outages) -> np.ndarray:
+    """True for every station time strictly inside one of the ``(start_s, end_s)`` outages."""
+    time_s = np.asarray(time_s, float)
+    out = np.zeros(len(time_s), bool)
+    for a, b in outages:  # one iteration per outage, not per station
+        out |= (time_s > a) & (time_s < b)
+    return out
 
 
 def _ordered_unique(a: np.ndarray) -> np.ndarray:
@@ -262,7 +333,7 @@ def _uncertainty(sm, t_start, t_end, step_m, cfg, rng) -> dict:
     dk2 = np.zeros(m)
     dv2 = np.zeros(m)
     dtau = np.empty((ns, m))
-    block = 4
+    block = 2
     for a in range(0, ns, block):
         b = min(ns, a + block)
         smp = sm.samples_at(sm.draw(b - a, rng), te)
