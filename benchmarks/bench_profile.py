@@ -4,7 +4,8 @@ about 15 s and <= 1.5 GB peak at 1,000,000 fixes on the 2-core machine).
 Run:  /tmp/v/bin/python benchmarks/bench_profile.py [N ...]   (default: 100000 1000000)
 Each size runs in its own process (clean peak-memory reading); prints one table. build_s is wall
 time, cpu_s the process CPU time (steadier than wall time when other jobs share the machine);
-peak_MB includes making the synthetic log.
+csv_s is writing the CSV (survey.profile_export.write_csv); peak_MB includes making the synthetic
+log.
 The log is the synthetic road alignment driven over and over at 80 km/h, 10 Hz, dual-frequency
 error with per-fix accuracy, cleaned by survey.clean.clean_track first (not timed).
 """
@@ -39,8 +40,17 @@ def one(n: int) -> None:
     t0, c0 = time.perf_counter(), time.process_time()
     p = build_profile(track, np.column_stack([e, nn, u]), frame)
     secs, cpu = time.perf_counter() - t0, time.process_time() - c0
+    import os
+    import tempfile
+
+    from survey.profile_export import write_csv
+
+    with tempfile.TemporaryDirectory() as tmp:
+        t1 = time.perf_counter()
+        write_csv(p, os.path.join(tmp, "p.csv"))
+        csv_s = time.perf_counter() - t1
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
-    print(f"{n:>9d} {len(p):>9d} {secs:8.1f} {cpu:8.1f} {peak:9.0f}")
+    print(f"{n:>9d} {len(p):>9d} {secs:8.1f} {cpu:8.1f} {csv_s:6.1f} {peak:9.0f}")
 
 
 if __name__ == "__main__":
@@ -48,7 +58,7 @@ if __name__ == "__main__":
         one(int(sys.argv[2]))
         raise SystemExit(0)
     sizes = [int(a) for a in sys.argv[1:]] or [100_000, 1_000_000]
-    print(f"{'fixes':>9s} {'stations':>9s} {'build_s':>8s} {'cpu_s':>8s} {'peak_MB':>9s}")
+    print(f"{'fixes':>9s} {'stations':>9s} {'build_s':>8s} {'cpu_s':>8s} {'csv_s':>6s} {'peak_MB':>9s}")
     sys.stdout.flush()
     for n in sizes:
         subprocess.run([sys.executable, __file__, "--one", str(n)], check=False)

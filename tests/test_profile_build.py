@@ -59,3 +59,31 @@ def test_csv_has_header_block_and_every_column(tmp_path):
     for col in ("chainage_m", "curvature_per_m", "torsion_sd_per_m", "lateral_accel_mps2"):
         assert col in header.split(",")
     assert not list(tmp_path.glob(".*part"))
+
+
+def test_csv_numbers_round_trip_to_half_a_unit_of_their_last_decimal(tmp_path):
+    # RFC 4180 CSV read back with Python's csv module; fixed-point cells must equal the profile's
+    # values to within half a unit in the last written decimal (rounding, not truncation), and
+    # undefined values must be empty cells.
+    import csv
+
+    from survey.profile_export import CSV_DECIMALS
+    from survey.stations import PROFILE_COLUMNS
+
+    traj = S.helix(40.0, 3.0, speed_mps=5.0, rate_hz=2.0, turns=0.5)
+    p = _build(S.fixes_to_track(S.add_gnss_error(traj, "dual", np.random.default_rng(4)), FRAME.inverse))
+    out = tmp_path / "p.csv"
+    write_csv(p, out)
+    rows = list(csv.reader(line for line in out.read_text().splitlines() if not line.startswith("#")))
+    header, body = rows[0], rows[1:]
+    assert header == [name for name, _ in PROFILE_COLUMNS] and len(body) == len(p)
+    for j, name in enumerate(header):
+        if name == "torsion_note":
+            continue
+        want = np.asarray(p.column(name), float)
+        cells = [r[j] for r in body]
+        empty = np.array([c == "" for c in cells])
+        assert np.array_equal(empty, ~np.isfinite(want)), name
+        got = np.array([float(c) for c, e in zip(cells, empty) if not e])
+        tol = 0.5 * 10.0 ** -CSV_DECIMALS[name] * (1 + 1e-9) + 1e-12 * np.abs(want[~empty])
+        assert np.all(np.abs(got - want[~empty]) <= tol), name
