@@ -38,9 +38,11 @@ exactly as in the flag export.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import io
 import json
+import multiprocessing
 import os
 import sys
 import time
@@ -50,7 +52,7 @@ from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
 from glob import glob
 from pathlib import Path
-from typing import IO, Callable, Iterable, Sequence
+from typing import IO, Callable, Iterable, Iterator, Sequence
 
 from .atomic import atomic_open, check_output_path
 from .design import CAUTION, Limits
@@ -322,6 +324,7 @@ def run_batch(
     dask_address=None,
     on_result: Callable[[LogResult], None] | None = None,
     dask_timeout_s: float = 20.0,
+    mp_context=None,
 ) -> list[LogResult]:
     """Run ``run_one`` on every log and return the results in the order of ``logs``.
 
@@ -336,6 +339,8 @@ def run_batch(
         Called with each result as soon as it is in (completion order), e.g. a progress bar.
     dask_timeout_s
         How long to try to reach the Dask scheduler before giving up, s.
+    mp_context
+        ``multiprocessing`` context for the local pool (default: "spawn").
     """
     done: dict[int, LogResult] = {}
 
@@ -349,34 +354,58 @@ def run_batch(
     if dask_address is not None:
         _run_dask(logs, options, dask_address, record, dask_timeout_s)
     else:
-        _run_local(logs, options, default_jobs() if jobs is None else jobs, record)
+        _run_local(logs, options, default_jobs() if jobs is None else jobs, record, mp_context)
     return [done[i] for i in range(len(logs))]
 
 
-def _run_local(logs: Sequence[str], options: BatchOptions, jobs: int, record) -> None:
+#: Environment of local worker processes: one BLAS/OpenMP thread each. The workers already fill
+#: the cores; threaded OpenBLAS on top made every log slower (its threads spin on the small
+#: banded solves), see benchmarks/bench_scale.py. A value the user has set is kept.
+WORKER_THREAD_ENV = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
+
+
+@contextlib.contextmanager
+def _worker_environment() -> Iterator[None]:
+    """Set ``WORKER_THREAD_ENV`` (where unset) while worker processes start, then restore."""
+    added = [k for k in WORKER_THREAD_ENV if k not in os.environ]
+    for k in added:
+        os.environ[k] = WORKER_THREAD_ENV[k]
+    try:
+        yield
+    finally:
+        for k in added:
+            os.environ.pop(k, None)
+
+
+def _run_local(logs: Sequence[str], options: BatchOptions, jobs: int, record, mp_context=None) -> None:
     if jobs < 1:
         raise InputError(None, f"--jobs must be at least 1, not {jobs}")
     if jobs == 1 or len(logs) == 1:
         for i, log in enumerate(logs):
             record(i, run_one(log, options))
         return
-    # One task per log (logs differ a lot in size, so no bigger chunks); results as they finish.
-    pool = ProcessPoolExecutor(max_workers=min(jobs, len(logs)))
-    try:
-        futures = {pool.submit(run_one, log, options): i for i, log in enumerate(logs)}
-        for fut in as_completed(futures):
-            i = futures[fut]
-            try:
-                res = fut.result()
-            except BrokenProcessPool:
-                res = failed(logs[i], f"{logs[i]}: worker process stopped unexpectedly (killed? out of memory?)")
-            except Exception as exc:  # e.g. a result that could not be sent back
-                res = failed(logs[i], f"{logs[i]}: worker error ({type(exc).__name__}: {exc})")
-            record(i, res)
-    except BaseException:
-        pool.shutdown(wait=False, cancel_futures=True)
-        raise
-    pool.shutdown(wait=True)
+    # Workers are started fresh ("spawn"), so they load numpy with the thread settings above
+    # (a forked child would inherit the parent's already-started BLAS threads) and share no
+    # state with this process. One task per log (logs differ a lot in size, so no bigger
+    # chunks); results are taken as they finish.
+    ctx = mp_context or multiprocessing.get_context("spawn")
+    with _worker_environment():
+        pool = ProcessPoolExecutor(max_workers=min(jobs, len(logs)), mp_context=ctx)
+        try:
+            futures = {pool.submit(run_one, log, options): i for i, log in enumerate(logs)}
+            for fut in as_completed(futures):
+                i = futures[fut]
+                try:
+                    res = fut.result()
+                except BrokenProcessPool:
+                    res = failed(logs[i], f"{logs[i]}: worker process stopped unexpectedly (killed? out of memory?)")
+                except Exception as exc:  # e.g. a result that could not be sent back
+                    res = failed(logs[i], f"{logs[i]}: worker error ({type(exc).__name__}: {exc})")
+                record(i, res)
+        except BaseException:
+            pool.shutdown(wait=False, cancel_futures=True)
+            raise
+        pool.shutdown(wait=True)
 
 
 def _run_dask(logs: Sequence[str], options: BatchOptions, address, record, timeout_s: float) -> None:

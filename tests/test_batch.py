@@ -390,3 +390,16 @@ def test_run_batch_returns_results_in_the_order_given(fleet, fake_pipeline):
     res = run_batch(logs, BatchOptions(Limits(sharp_radius_m=150.0)), jobs=1, on_result=seen.append)
     assert [r.log for r in res] == logs and [r.ok for r in res] == [True, False, True]
     assert len(seen) == 3
+
+
+def test_worker_processes_start_with_one_blas_thread_and_the_environment_is_restored(monkeypatch):
+    import os
+
+    from survey.batch import WORKER_THREAD_ENV, _worker_environment
+
+    monkeypatch.delenv("OPENBLAS_NUM_THREADS", raising=False)
+    monkeypatch.setenv("OMP_NUM_THREADS", "3")  # the user's own choice is kept
+    with _worker_environment():
+        assert os.environ["OPENBLAS_NUM_THREADS"] == WORKER_THREAD_ENV["OPENBLAS_NUM_THREADS"] == "1"
+        assert os.environ["OMP_NUM_THREADS"] == "3"
+    assert "OPENBLAS_NUM_THREADS" not in os.environ and os.environ["OMP_NUM_THREADS"] == "3"

@@ -125,14 +125,14 @@ def test_unreachable_scheduler_is_a_one_line_error():
     assert "\n" not in str(exc.value)
 
 
-@pytest.mark.skipif(multiprocessing.get_start_method() != "fork", reason="needs fork to stand in a dying pipeline")
+@pytest.mark.skipif("fork" not in multiprocessing.get_all_start_methods(), reason="needs fork to stand in a dying pipeline")
 def test_a_worker_process_that_dies_is_listed_as_failed_and_the_batch_ends(logs, monkeypatch):
     def die(path, **kw):
         os._exit(9)  # as if the kernel's out-of-memory killer stopped the worker
 
     monkeypatch.setattr(survey.pipeline, "run_profile", die)
     names = [str(logs["tight"]), str(logs["wide"])]
-    res = run_batch(names, BatchOptions(LIMITS, use_marks=False), jobs=2)
+    res = run_batch(names, BatchOptions(LIMITS, use_marks=False), jobs=2, mp_context=multiprocessing.get_context("fork"))
     assert [r.ok for r in res] == [False, False]
     assert all("worker process stopped unexpectedly" in r.error for r in res)
 
