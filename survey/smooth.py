@@ -150,12 +150,13 @@ def evaluate_intervals(coef: FloatArray, knot_t0: float, h: float, t: FloatArray
     t = np.asarray(t, float)
     out = np.empty((len(t),) + inner + (4,))
     chunk = max(1000, chunk // max(int(np.prod(inner[:-1])) if len(inner) > 1 else 1, 1))
-    mats = np.stack([_DERIV[d] / h**d for d in range(4)], axis=0)  # (4 derivs, 8, 8)
+    # sigma^0..7 -> weight of coefficient c in derivative d, columns ordered (d, c)
+    mats = np.concatenate([_DERIV[d] / h**d for d in range(4)], axis=1)  # (8, 32)
     ones = (1,) * len(inner)
     for a in range(0, len(t), chunk):
         u = (t[a : a + chunk] - knot_t0) / h
         k = np.clip(np.floor(u).astype(np.int64), 0, K - 2)
-        W = np.einsum("mj,djc->dcm", _powers(np.clip(u - k, 0.0, 1.0)), mats)  # (4, 8, m)
+        W = np.ascontiguousarray((_powers(np.clip(u - k, 0.0, 1.0)) @ mats).T).reshape(4, 8, -1)  # (4, 8, m)
         acc = np.zeros((4, len(k)) + inner)
         for c in range(8):
             cc = coef[c][k]  # (m, ..., A)
@@ -360,6 +361,7 @@ class AxisSystem:
     y: FloatArray  # (n, A)
     design: Design
     model: NoiseModel
+    wander_gain: tuple | None = None  # cached by noise_draws
 
 
 def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, pos_sd: float = 1e4) -> AxisSystem:
@@ -506,8 +508,10 @@ def noise_draws(
         z = rng.standard_normal((K, cols)) * np.sqrt(model.wander_var_m2 * (1.0 - phi**2))
         z[0] = rng.standard_normal(cols) * np.sqrt(model.wander_var_m2)
         b = lfilter([1.0], [1.0, -phi], z, axis=0)
-        m = _interval_sums(system.design, system.w, N_LEG)
-        g0, g1 = m @ W0, m @ W1  # (K-1, 2d)
+        if system.wander_gain is None:  # same for every batch of draws: computed once
+            m = _interval_sums(system.design, system.w, N_LEG)
+            system.wander_gain = (m @ W0, m @ W1)
+        g0, g1 = system.wander_gain  # (K-1, 2d)
         contrib = g0[:, None, :] * b[:-1, :, None] + g1[:, None, :] * b[1:, :, None]
         rhs[:-1] += contrib[:, :, :d]
         rhs[1:] += contrib[:, :, d:]
