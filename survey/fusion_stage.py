@@ -73,5 +73,4 @@ def add_imu_fields(profile: Profile, fused: FusedPath) -> Profile:
         pitch_deg=np.degrees(at(fused.pitch_rad)),
         imu_outage=outage & inside,
         settings=settings,
-        messages=tuple(profile.messages) + tuple(fused.messages),
     )

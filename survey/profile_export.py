@@ -1,7 +1,7 @@
 """Write a ``Profile`` as CSV (file or stdout) or as an .xlsx workbook, atomically.
 
 CSV: a header comment block (lines starting with ``#``: tool version, units, frame, height
-reference, smoothing settings, messages), then one header row of ``PROFILE_COLUMNS`` names and
+reference, smoothing settings, messages), then one header row of ``Profile.columns()`` names and
 one row per station (RFC 4180). Numbers are written in fixed point with ``CSV_DECIMALS``
 decimals, formatted for a block of stations at a time as one ASCII byte matrix (no per-row
 Python: two million stations take seconds, not minutes); a block with a value too large for
@@ -26,7 +26,7 @@ import numpy as np
 from . import __version__
 from .atomic import atomic_open, check_output_path
 from .errors import InputError
-from .stations import PROFILE_COLUMNS, Profile
+from .stations import Profile
 
 _DANGEROUS = ("=", "+", "-", "@", "\t", "\r")
 
@@ -41,7 +41,7 @@ def header_lines(profile: Profile) -> list[str]:
         "settings: " + "; ".join(f"{k}={v}" for k, v in profile.settings.items()),
     ]
     lines += [f"message: {m}" for m in profile.messages]
-    lines += [f"column {name}: {unit}" for name, unit in PROFILE_COLUMNS]
+    lines += [f"column {name}: {unit}" for name, unit in profile.columns()]
     return lines
 
 
@@ -54,7 +54,7 @@ def _cell(value):
 
 
 def _rows(profile: Profile, start: int = 0, stop: int | None = None):
-    cols = [profile.column(name) for name, _ in PROFILE_COLUMNS]
+    cols = [profile.column(name) for name, _ in profile.columns()]
     for i in range(start, len(profile) if stop is None else stop):
         yield [_cell(c[i].item() if hasattr(c[i], "item") else c[i]) for c in cols]
 
@@ -153,7 +153,7 @@ def _fast_chunk(profile: Profile, names: list[str], a: int, b: int) -> str | Non
 def _write_csv_stream(profile: Profile, fh) -> None:
     for line in header_lines(profile):
         fh.write("# " + " ".join(line.split()) + "\n")
-    names = [name for name, _ in PROFILE_COLUMNS]
+    names = [name for name, _ in profile.columns()]
     w = csv.writer(fh, lineterminator="\n")
     w.writerow(names)
     fast = all(n in CSV_DECIMALS or n == "torsion_note" for n in names)
@@ -173,7 +173,7 @@ def write_xlsx(profile: Profile, out, force: bool = False) -> None:
     path = check_output_path(out, force)
     wb = Workbook(write_only=True)
     ws = wb.create_sheet("profile")
-    ws.append([name for name, _ in PROFILE_COLUMNS])
+    ws.append([name for name, _ in profile.columns()])
     for row in _rows(profile):
         ws.append([None if c == "" else (float(c) if isinstance(c, str) and _is_number(c) else c) for c in row])
     info = wb.create_sheet("settings")

@@ -130,11 +130,18 @@ class Profile:
         scalars = {"step_m", "height_ref", "frame", "settings", "messages"}
         return tuple(f.name for f in fields(Profile) if f.name not in scalars)
 
+    def columns(self) -> tuple[tuple[str, str], ...]:
+        """(name, unit) of every exported column: ``PROFILE_COLUMNS``, plus
+        ``IMU_PROFILE_COLUMNS`` when an IMU log was fused."""
+        return PROFILE_COLUMNS + (IMU_PROFILE_COLUMNS if self.bank_deg is not None else ())
+
     def column(self, name: str) -> np.ndarray:
-        """One output column of ``PROFILE_COLUMNS`` by its exported name."""
+        """One output column of ``columns()`` by its exported name."""
         alias = {"lat": "lat_deg", "lon": "lon_deg", "alt_m": "height_m"}
         if name == "torsion_note":
             return np.array([TORSION_REASONS[int(c)] for c in self.torsion_reason], dtype=object)
+        if name == "imu_outage":
+            return self.imu_outage.astype(np.float64)
         return getattr(self, alias.get(name, name))
 
     def nbytes(self) -> int:

@@ -8,7 +8,7 @@ import sys
 from ..errors import InputError
 from ..pipeline import run_profile
 from ..profile_export import write_profile
-from .common import add_log_arguments, log_kwargs, positive_float
+from .common import add_imu_arguments, add_log_arguments, imu_kwargs, log_kwargs, positive_float
 
 
 def add_parser(subparsers) -> None:
@@ -20,6 +20,7 @@ def add_parser(subparsers) -> None:
         "lateral acceleration. OUT may be .csv, .xlsx or - (CSV on standard output).",
     )
     add_log_arguments(p)
+    add_imu_arguments(p)
     p.add_argument("--step", type=positive_float, default=1.0, metavar="M", help="station spacing in metres (default 1)")
     p.add_argument("-o", "--output", required=True, metavar="OUT", help="output file (.csv or .xlsx), or - for stdout")
     p.add_argument("--force", action="store_true", help="overwrite OUT if it exists")
@@ -34,7 +35,7 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(out, "unknown output type; use a .csv or .xlsx file name, or - for stdout")
     if args.samples is not None and args.samples < 2:
         raise InputError(None, "--samples must be at least 2")
-    result = run_profile(args.log, step_m=args.step, n_samples=args.samples, **log_kwargs(args))
+    result = run_profile(args.log, step_m=args.step, n_samples=args.samples, **log_kwargs(args), **imu_kwargs(args))
     profile = result.profile
     if len(profile) == 0:
         raise InputError(args.log, "no stations: " + "; ".join(profile.messages))

@@ -13,7 +13,7 @@ import numpy as np
 from .. import __version__
 from ..design import CAUTION
 from ..sections import KIND_DESIGN, SECTION_COLUMNS, Section
-from ..stations import PROFILE_COLUMNS, Profile
+from ..stations import Profile
 from .cells import iso_utc, neutralise, plain
 
 #: Section table columns: the Section fields, ISO times after the epoch seconds, and the caution.
@@ -92,9 +92,9 @@ def section_rows(sections: Sequence[Section], guard: bool = True) -> tuple[list[
 
 
 def profile_rows(profile: Profile, guard: bool = True, stride: int = 1) -> tuple[list[str], Iterator[list]]:
-    """(header, row iterator) of the profile table (``PROFILE_COLUMNS``), non-finite -> None;
+    """(header, row iterator) of the profile table (``Profile.columns()``), non-finite -> None;
     every ``stride``-th station."""
-    header = [name for name, _ in PROFILE_COLUMNS]
+    header = [name for name, _ in profile.columns()]
     cols = []
     for name in header:
         arr = profile.column(name)[::stride]
