@@ -16,7 +16,9 @@ Steps (one-way):
    accuracy) bounds the TOTAL white + wander variance (``accuracy_cap``); it is not a white floor,
    which would oversmooth bends.
 5. 1-sigma of kappa, tau and the velocity from ``n_samples`` repeated-noise estimates (the
-   smoother's sampling error, ``survey.smooth.noise_draws``) on a time grid of two knot intervals.
+   smoother's sampling error, ``survey.smooth.noise_draws``) at the finest knots, deviations
+   pooled over ``sd_pool_knots`` knots either side (``_uncertainty``). With a fused GNSS/IMU path
+   (``smoothed=``) steps 1-4 are skipped and its own draws are used.
 6. Chainage = integral of the smoothed 3D speed over time, where the mover is moving; where the
    smoothed speed is below ``stop_sigmas`` times its own 1-sigma the mover is taken as stopped and
    the chainage does not advance, so no station falls inside a stop (kappa is per metre of path).

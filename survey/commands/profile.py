@@ -25,7 +25,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("-o", "--output", required=True, metavar="OUT", help="output file (.csv or .xlsx), or - for stdout")
     p.add_argument("--force", action="store_true", help="overwrite OUT if it exists")
     p.add_argument("--samples", type=int, default=None, metavar="N",
-                   help="posterior samples for the 1-sigma columns (default 32)")
+                   help="repeated-noise draws for the 1-sigma columns (default 8, pooled along the path)")
     p.set_defaults(run=run)
 
 
