@@ -108,19 +108,21 @@ def cases(quick: bool):
         ("road dual corrupted", S.road_alignment, "dual", True, "road dual 10Hz 80km/h", "R_med"),
         ("road phone 1Hz", lambda: S.road_alignment(rate_hz=1.0), "phone", False,
          {"R_med": 0.08, "k_rms": 0.15}, "R_med"),
-        ("plane loop dual 5Hz", S.plane_loop, "dual", False, {"tp95/k": 0.05}, "tp95/k"),
+        ("plane loop dual 5Hz", S.plane_loop, "dual", False, {"tp95/k": 0.05}, "tp95/k"),  # tilted 6 deg
+        ("level loop dual 5Hz", lambda: S.plane_loop(tilt_deg=0.0), "dual", False, {"tp95/k": 0.05}, "tp95/k"),
         ("switchbacks R8 phone 1Hz", S.switchbacks, "phone", False, {"R_med": 0.15}, "R_med"),
         ("switchbacks R8 dual 1Hz", S.switchbacks, "dual", False, {"R_med": 0.15}, "R_med"),
     ]
     if quick:
-        keep = {"helix RTK 10Hz", "road dual 10Hz 80km/h", "road dual corrupted", "plane loop dual 5Hz"}
+        keep = {"helix RTK 10Hz", "road dual 10Hz 80km/h", "road dual corrupted", "plane loop dual 5Hz",
+                "level loop dual 5Hz"}
         rows = [r for r in rows if r[0] in keep]
     return rows
 
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--quick", action="store_true", help="four cases only")
+    ap.add_argument("--quick", action="store_true", help="five cases only")
     ap.add_argument("--seed", type=int, default=2024)
     args = ap.parse_args(argv)
     rng = np.random.default_rng(args.seed)
