@@ -6,7 +6,7 @@ import argparse
 import sys
 
 from ..errors import InputError
-from ..pipeline import run_profile
+from .. import pipeline
 from ..profile_export import write_profile
 from .common import add_imu_arguments, add_log_arguments, imu_kwargs, log_kwargs, positive_float
 
@@ -35,7 +35,7 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(out, "unknown output type; use a .csv or .xlsx file name, or - for stdout")
     if args.samples is not None and args.samples < 2:
         raise InputError(None, "--samples must be at least 2")
-    result = run_profile(args.log, step_m=args.step, n_samples=args.samples, **log_kwargs(args), **imu_kwargs(args))
+    result = pipeline.run_profile(args.log, step_m=args.step, n_samples=args.samples, **log_kwargs(args), **imu_kwargs(args))
     profile = result.profile
     if len(profile) == 0:
         raise InputError(args.log, "no stations: " + "; ".join(profile.messages))
