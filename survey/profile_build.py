@@ -19,7 +19,11 @@ Steps (one-way):
    smoother's sampling error, ``survey.smooth.noise_draws``) at the finest knots, deviations
    pooled over ``sd_pool_knots`` knots either side (``_uncertainty``). With a fused GNSS/IMU path
    (``smoothed=``) steps 1-4 are skipped and its own draws are used.
-6. Chainage = integral of the smoothed 3D speed over time, where the mover is moving; where the
+6. Chainage = integral of the smoothed 3D speed over time, where the mover is moving; the speed
+   (here and in the speed column) is corrected for the smoother's own bias by twicing
+   (``speed_bias="twice"``: 2|v(S y)| - |v(S S y)|, ``survey.smooth.resmooth_path``): a linear
+   smoother cuts corners, most where the receiver's slow wander can take up part of a tight turn,
+   which made the speed through switchbacks and the chainage short. Where the
    smoothed speed is below ``stop_sigmas`` times its own 1-sigma the mover is taken as stopped and
    the chainage does not advance, so no station falls inside a stop (kappa is per metre of path).
    Stations on the run into or out of a stop whose speed is below ``slow_sigmas`` x its 1-sigma
@@ -53,6 +57,7 @@ DEFAULTS = {
     "fit_fixes": 2000,
     "min_fixes": 6,
     "robust_iterations": 3,
+    "speed_bias": "twice",
     "station_chunk": 100_000,
 }
 
@@ -150,7 +155,8 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, s
     def smoothed_stretches():
         for sid, t, y, bh, bv, scr_h, scr_v in stretches:
             yield sid, t[0], t[-1], smooth_stretch(t, y, bh, bv, model_h, model_v if has_height else None, scr_h,
-                                                   scr_v, robust_iterations=cfg["robust_iterations"])
+                                                   scr_v, robust_iterations=cfg["robust_iterations"],
+                                                   twice=cfg["speed_bias"] == "twice")
 
     cols, knots, lengths = _place_stations(smoothed_stretches(), step_m, has_time, has_height, cfg, messages)
     if cols is None:
@@ -368,6 +374,9 @@ def _chainage_table(sm, t_start, t_end, unc, k_stop):
     ng = int(np.ceil(2.0 * (t_end - t_start) / h)) + 1
     tg = np.linspace(t_start, t_end, ng)
     speed = np.linalg.norm(sm.at(tg)[:, :, 1], axis=1)
+    s2 = sm.at_twice(tg) if hasattr(sm, "at_twice") else None
+    if s2 is not None:  # twicing: speed - estimated smoothing bias (|S f| - |f| ~ |S S y| - |S y|)
+        speed = np.maximum(2.0 * speed - np.linalg.norm(s2[:, :, 1], axis=1), 0.0)
     v_min = k_stop * np.interp(tg, unc["t"], unc["speed_sd"])
     stopped = speed <= v_min
     speed = np.where(stopped, 0.0, speed)
@@ -397,6 +406,9 @@ def _stations(sm, ts, chain, sid, has_time, has_height, unc, t_stop, cfg) -> dic
 def _station_chunk(sm, ts, chain, sid, has_time, has_height, unc, cfg) -> dict:
     st = sm.at(ts)
     g = frenet(st[:, :, 1], st[:, :, 2], st[:, :, 3])
+    s2 = sm.at_twice(ts) if hasattr(sm, "at_twice") else None
+    if s2 is not None:  # speed less its estimated smoothing bias, as in the chainage
+        g["speed"] = np.maximum(2.0 * g["speed"] - np.linalg.norm(s2[:, :, 1], axis=1), 0.0)
     n = len(ts)
     k_sd = np.interp(ts, unc["t"], unc["kappa_sd"])
     t_sd = np.interp(ts, unc["t"], unc["tau_sd"])
@@ -500,7 +512,7 @@ def _settings(cfg, step_m, model_h: NoiseModel, model_v: NoiseModel | None, use_
     if model_v is not None:
         out.update(snap_psd_v_m2_s7=model_v.snap_psd, var_scale_v=model_v.var_scale,
                    wander_var_v_m2=model_v.wander_var_m2)
-    for k in ("n_samples", "sd_pool_knots", "seed", "wander_tau_s", "vertical_factor", "stop_sigmas", "slow_sigmas", "kappa_sigmas", "accuracy_cap", "robust_iterations"):
+    for k in ("n_samples", "sd_pool_knots", "seed", "wander_tau_s", "vertical_factor", "stop_sigmas", "slow_sigmas", "kappa_sigmas", "accuracy_cap", "robust_iterations", "speed_bias"):
         out[k] = cfg[k]
     return out
 

@@ -442,6 +442,28 @@ def fitted(system: AxisSystem, x: FloatArray) -> FloatArray:
     return out
 
 
+def resmooth_path(system: AxisSystem, U: FloatArray, x: FloatArray) -> FloatArray:
+    """The smoother applied to its own estimate of the path: knot states (K, d, A) of S(S y).
+
+    The estimate's path part at every fix (the wander left out) is fed back as data through the
+    same linear smoother (same fixes, weights and factor; only the right-hand side changes).
+    For a linear smoother S the bias of S y for a true path f is (S - I) f, estimated by
+    (S - I) S y: Tukey's twicing (Tukey 1977; Stuetzle & Mittal 1979), here used for the speed
+    along the path, whose bias at turns (corner cutting) shortens the chainage."""
+    d = system.dim
+    xp = x.copy()
+    if d > N_PATH:
+        xp[:, N_PATH:, :] = 0.0
+    y2 = fitted(system, xp)
+    B = _tables(d)[0]
+    s = _interval_sums(system.design, system.w[:, None] * y2, 8) @ B.T  # (K-1, A, 2d)
+    K = system.design.n_knots
+    rhs = np.zeros((K, d, y2.shape[1]))
+    rhs[:-1] += np.swapaxes(s[:, :, :d], 1, 2)
+    rhs[1:] += np.swapaxes(s[:, :, d:], 1, 2)
+    return cho_solve_banded((U, False), rhs.reshape(K * d, -1), check_finite=False).reshape(K, d, -1)
+
+
 def log_likelihood(system: AxisSystem, U: FloatArray, x: FloatArray) -> float:
     """Log marginal likelihood of the fixes of all A axes (up to a constant shared by all noise
     models).
@@ -720,6 +742,8 @@ class AxisGroup:
     model: NoiseModel
 
     _coef: FloatArray | None = None
+    resmoothed: FloatArray | None = None  # (K, A, 4) SI knot states of S(S y), see resmooth_path
+    _coef2: FloatArray | None = None
 
     def at(self, t: FloatArray) -> FloatArray:
         """(n, A, 4) SI states at times ``t`` (interval coefficients computed once)."""
@@ -752,6 +776,18 @@ class Smoothed:
         out = np.zeros((len(t), 3, N_PATH))
         for g in self.groups:
             out[:, list(g.axes), :] = g.at(t)
+        return out
+
+    def at_twice(self, t: FloatArray) -> FloatArray | None:
+        """(n, 3, 4) (p, v, a, j) of the smoother applied to its own estimate
+        (``resmooth_path``) at times ``t``, or None when it was not computed."""
+        if not self.groups or any(g.resmoothed is None for g in self.groups):
+            return None
+        out = np.zeros((len(t), 3, N_PATH))
+        for g in self.groups:
+            if g._coef2 is None:
+                g._coef2 = interval_coefficients(g.resmoothed, g.h)
+            out[:, list(g.axes)] = evaluate_intervals(g._coef2, g.t0, g.h, t)
         return out
 
     def draw(self, n_samples: int, rng: np.random.Generator) -> list[FloatArray]:
@@ -789,6 +825,7 @@ def smooth_stretch(
     huber_c: float = 2.5,
     reject_sigma: float = 6.0,
     weight_tol: float = 0.05,
+    twice: bool = False,
 ) -> Smoothed:
     """Smooth one stretch of fixes (strictly increasing ``t``) on all three axes.
 
@@ -846,7 +883,10 @@ def smooth_stretch(
         conv = design.h ** -np.arange(N_PATH)
         states = np.swapaxes(x[:, :N_PATH, :], 1, 2) * conv  # (K, A, 4)
         states[:, :, 0] += offset[list(axes)]
-        groups.append(AxisGroup(axes, design.t0, design.h, states, sysm, U, var, m))
+        g = AxisGroup(axes, design.t0, design.h, states, sysm, U, var, m)
+        if twice:
+            g.resmoothed = np.swapaxes(resmooth_path(sysm, U, x)[:, :N_PATH, :], 1, 2) * conv
+        groups.append(g)
     return Smoothed(groups, w_h, w_v)
 
 
