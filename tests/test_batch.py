@@ -403,3 +403,11 @@ def test_worker_processes_start_with_one_blas_thread_and_the_environment_is_rest
         assert os.environ["OPENBLAS_NUM_THREADS"] == WORKER_THREAD_ENV["OPENBLAS_NUM_THREADS"] == "1"
         assert os.environ["OMP_NUM_THREADS"] == "3"
     assert "OPENBLAS_NUM_THREADS" not in os.environ and os.environ["OMP_NUM_THREADS"] == "3"
+
+
+def test_big_logs_are_handed_out_first_and_missing_ones_last(tmp_path):
+    from survey.batch import largest_first
+
+    small, big, mid = _log(tmp_path, "s.gpx", "x"), _log(tmp_path, "b.gpx", "x" * 300), _log(tmp_path, "m.gpx", "x" * 20)
+    names = [str(small), str(tmp_path / "gone.gpx"), str(big), str(mid)]
+    assert largest_first(names) == [2, 3, 0, 1]
