@@ -376,7 +376,9 @@ def _chainage_table(sm, t_start, t_end, unc, k_stop):
     speed = np.linalg.norm(sm.at(tg)[:, :, 1], axis=1)
     s2 = sm.at_twice(tg) if hasattr(sm, "at_twice") else None
     if s2 is not None:  # twicing: speed - estimated smoothing bias (|S f| - |f| ~ |S S y| - |S y|)
-        speed = np.maximum(2.0 * speed - np.linalg.norm(s2[:, :, 1], axis=1), 0.0)
+        bias = np.linalg.norm(s2[:, :, 1], axis=1) - speed
+        unc["speed_bias_t"], unc["speed_bias"] = tg, bias  # stations interpolate it (cheap)
+        speed = np.maximum(speed - bias, 0.0)
     v_min = k_stop * np.interp(tg, unc["t"], unc["speed_sd"])
     stopped = speed <= v_min
     speed = np.where(stopped, 0.0, speed)
@@ -406,9 +408,8 @@ def _stations(sm, ts, chain, sid, has_time, has_height, unc, t_stop, cfg) -> dic
 def _station_chunk(sm, ts, chain, sid, has_time, has_height, unc, cfg) -> dict:
     st = sm.at(ts)
     g = frenet(st[:, :, 1], st[:, :, 2], st[:, :, 3])
-    s2 = sm.at_twice(ts) if hasattr(sm, "at_twice") else None
-    if s2 is not None:  # speed less its estimated smoothing bias, as in the chainage
-        g["speed"] = np.maximum(2.0 * g["speed"] - np.linalg.norm(s2[:, :, 1], axis=1), 0.0)
+    if "speed_bias" in unc:  # speed less its estimated smoothing bias, as in the chainage
+        g["speed"] = np.maximum(g["speed"] - np.interp(ts, unc["speed_bias_t"], unc["speed_bias"]), 0.0)
     n = len(ts)
     k_sd = np.interp(ts, unc["t"], unc["kappa_sd"])
     t_sd = np.interp(ts, unc["t"], unc["tau_sd"])
