@@ -4,7 +4,7 @@
 
 Cases (files written once into a temporary folder; an invented logger near 48.1 N 11.5 E):
 
-* NMEA 0183 at 10 Hz, each epoch RMC + GGA + GSA + GSV (checksummed, CRLF), so half the
+* NMEA 0183 at 20 Hz, each epoch RMC + GGA + GSA + GSV (checksummed, CRLF), so half the
   sentences are ones the reader must classify and skip;
 * CSV with ISO 8601 UTC times, height, speed in km/h and HDOP;
 * CSV with UNIX epoch seconds and height.
@@ -54,10 +54,11 @@ def _checksummed(body: str) -> str:
 
 def nmea_text(n: int) -> str:
     out = []
+    # 20 Hz from midnight keeps up to 1.7 million epochs within the one date the RMC sentences give
     for i in range(n):
-        t = 43200 + i * 0.1
-        ts = f"{int(t // 3600) % 24:02d}{int(t // 60 % 60):02d}{t % 60:05.2f}"
-        lat = f"{4807 + i * 1e-4:.5f}"
+        t = i / 20
+        ts = f"{int(t // 3600):02d}{int(t // 60 % 60):02d}{t % 60:05.2f}"
+        lat = f"{4807 + i * 1e-5:.5f}"  # minutes stay below 60 up to 5 million fixes
         out.append(_checksummed(f"GPRMC,{ts},A,{lat},N,01131.00000,E,12.0,0.0,010524,,,A"))
         out.append(_checksummed(f"GPGGA,{ts},{lat},N,01131.00000,E,1,08,0.9,545.4,M,46.9,M,,"))
         out.append(_checksummed("GPGSA,A,3,04,05,,09,12,,,24,,,,,2.5,1.3,2.1"))
@@ -83,7 +84,7 @@ def csv_epoch_text(n: int) -> str:
 
 
 CASES = (
-    ("NMEA RMC+GGA+GSA+GSV, 10 Hz", "nmea", ".nmea", nmea_text),
+    ("NMEA RMC+GGA+GSA+GSV, 20 Hz", "nmea", ".nmea", nmea_text),
     ("CSV, ISO 8601 times", "csv", ".csv", csv_iso_text),
     ("CSV, epoch seconds", "csv", ".csv", csv_epoch_text),
 )
