@@ -14,7 +14,9 @@ Steps (one-way):
    Gauss-Markov wander (``wander_tau_s``). With per-fix accuracy, accuracy^2 (vertical:
    (``vertical_factor`` x accuracy)^2, heights are 1.5-1.7x noisier: REFERENCES.md, GNSS
    accuracy) bounds the TOTAL white + wander variance (``accuracy_cap``); it is not a white floor,
-   which would oversmooth bends.
+   which would oversmooth bends. Without stated accuracy the wander variance is bounded by
+   ``wander_ratio_max`` x the fitted white variance (the data cannot identify it on a short log
+   with tight turns; see ``survey.smooth``, "Wander without stated accuracy").
 5. 1-sigma of kappa, tau and the velocity from ``n_samples`` repeated-noise estimates (the
    smoother's sampling error, ``survey.smooth.noise_draws``) at the finest knots, deviations
    pooled over ``sd_pool_knots`` knots either side (``_uncertainty``). With a fused GNSS/IMU path
@@ -58,6 +60,7 @@ DEFAULTS = {
     "min_fixes": 6,
     "robust_iterations": 3,
     "speed_bias": "twice",
+    "wander_ratio_max": 4.0,
     "station_chunk": 100_000,
 }
 
@@ -308,8 +311,9 @@ def _fit_models(stretches, use_acc, has_height, cfg):
         r0 = float(np.median([robust_white_var(np.where(np.isfinite(p[2]), p[1][:, k], np.nan)) for p in pieces]))
         return r0
 
-    fh = fit_noise(pieces_h, tau, start(pieces_h, 0), cap)
-    fv = fit_noise(pieces_v, tau, start(pieces_v, 0), cap) if has_height and pieces_v else None
+    ratio = cfg["wander_ratio_max"] if cap is None else None
+    fh = fit_noise(pieces_h, tau, start(pieces_h, 0), cap, ratio)
+    fv = fit_noise(pieces_v, tau, start(pieces_v, 0), cap, ratio) if has_height and pieces_v else None
     return fh, fv
 
 
@@ -503,7 +507,7 @@ def _settings(cfg, step_m, model_h: NoiseModel, model_v: NoiseModel | None, use_
         "parameter": "time" if has_time else "raw chainage (log has no time)",
         "step_m": float(step_m),
         "measurement_noise": ("white + Gauss-Markov wander by ML, total bounded by accuracy_cap x stated accuracy^2"
-                              if use_acc else "white + Gauss-Markov wander by ML"),
+                              if use_acc else "white + Gauss-Markov wander by ML, wander <= wander_ratio_max x white"),
         "snap_psd_h_m2_s7": model_h.snap_psd,
         "var_scale_h": model_h.var_scale,
         "wander_var_h_m2": model_h.wander_var_m2,
@@ -513,7 +517,7 @@ def _settings(cfg, step_m, model_h: NoiseModel, model_v: NoiseModel | None, use_
     if model_v is not None:
         out.update(snap_psd_v_m2_s7=model_v.snap_psd, var_scale_v=model_v.var_scale,
                    wander_var_v_m2=model_v.wander_var_m2)
-    for k in ("n_samples", "sd_pool_knots", "seed", "wander_tau_s", "vertical_factor", "stop_sigmas", "slow_sigmas", "kappa_sigmas", "accuracy_cap", "robust_iterations", "speed_bias"):
+    for k in ("n_samples", "sd_pool_knots", "seed", "wander_tau_s", "vertical_factor", "stop_sigmas", "slow_sigmas", "kappa_sigmas", "accuracy_cap", "robust_iterations", "speed_bias", "wander_ratio_max"):
         out[k] = cfg[k]
     return out
 
