@@ -17,6 +17,18 @@ Each log runs exactly what ``trackframe flag`` runs: ``survey.pipeline.run_profi
 off). A log that fails (any ``InputError``: unreadable, too few fixes, bad sidecar, ...) becomes a
 failed ``LogResult`` carrying the one-line message, and the others go on.
 
+Where logs run
+--------------
+* Locally (default): a ``ProcessPoolExecutor`` with one worker per core; workers are started
+  fresh ("spawn") with one BLAS thread each (``WORKER_THREAD_ENV``), logs are handed out one
+  per task, largest file first. ``jobs=1`` runs in this process.
+* On a Dask distributed cluster (``dask_address``): one task per log, results gathered as they
+  complete. To set one up: ``dask scheduler`` on a head node (it listens on tcp://HEAD:8786);
+  ``dask worker tcp://HEAD:8786`` on every node, each with the same trackframe installed (with
+  the ``dask[distributed]`` extra) and the logs on a shared folder mounted at the same absolute
+  path as on the machine that runs ``trackframe batch ... --dask tcp://HEAD:8786``. Relative
+  PATHS are sent as absolute paths. Dask's nanny already starts workers with one BLAS thread.
+
 Combined findings file
 ----------------------
 Every format has the flag export's section columns (``survey.export.SECTION_TABLE_COLUMNS``,
