@@ -34,7 +34,7 @@ from dataclasses import asdict, dataclass, fields
 from typing import Iterable, Sequence
 
 import numpy as np
-from scipy.stats import norm
+from scipy.special import ndtr
 
 from .design import CAUTION, Limits, balance_speed_kmh
 from .stations import Profile
@@ -351,7 +351,7 @@ def describe(
 
 
 def _confidence(z_max: float) -> float:
-    return math.nan if math.isnan(z_max) else float(norm.cdf(z_max))
+    return math.nan if math.isnan(z_max) else float(ndtr(z_max))  # standard normal CDF
 
 
 def detect_kind(profile: Profile, kind: str, limits: Limits) -> list[Section]:

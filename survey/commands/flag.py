@@ -15,8 +15,6 @@ from pathlib import Path
 from ..atomic import check_output_path
 from ..design import CAUTION, PRESETS, Limits, preset_limits
 from ..errors import InputError
-from ..export import STDOUT, RunInfo, export_format, write_findings
-from ..marks import MarkStore, file_sha256, sidecar_path
 from ..sections import KIND_DESIGN, KINDS, all_sections, marks_outside
 from .common import add_imu_arguments, add_log_arguments, imu_kwargs, log_kwargs, positive_float
 
@@ -133,6 +131,10 @@ def _same_file(a: str, b: Path) -> bool:
 
 
 def run(args: argparse.Namespace) -> int:
+    # Imported here so that building the parser (every command's start-up) stays light.
+    from ..export import STDOUT, RunInfo, export_format, write_findings
+    from ..marks import MarkStore, file_sha256, sidecar_path
+
     output = args.output
     export_format(output)  # unknown extension: fail before any work
     if output != STDOUT:
