@@ -192,6 +192,8 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _summary(fh, sections, limits: Limits, output: str) -> None:
+    from ..export import STDOUT
+
     counts = {k: sum(1 for s in sections if s.kind == k) for k in KINDS}
     parts = ", ".join(f"{n} {k}" for k, n in counts.items() if n)
     dest = "stdout" if output == STDOUT else output
