@@ -101,7 +101,7 @@ def test_curvature_band_covers_the_truth_at_about_its_stated_rate():
     # A calibrated 1-sigma band covers the truth ~68 % of the time (Gaussian property). White
     # receiver noise with its true accuracy: the model's own assumptions.
     a, c = 40.0, 6.0
-    k_true, t_true = a / (a * a + c * c), c / (a * a + c * c)
+    k_true = a / (a * a + c * c)  # helix curvature, closed form (do Carmo 1976)
     traj = S.helix(a, c, speed_mps=8.0, rate_hz=5.0, turns=1.0)
     hits_k = []
     for seed in range(8):

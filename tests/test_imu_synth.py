@@ -4,7 +4,6 @@ import numpy as np
 import pytest
 
 from survey.imu.preint import make_substeps, preintegrate
-from survey.imu.reader import ImuLog
 from survey.imu.synth import MPU9250, imu_truth, make_motion, simulate_imu, superelevation_bank
 from survey.synthetic import alignment_curve
 

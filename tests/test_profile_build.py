@@ -1,7 +1,6 @@
 """build_profile on awkward input, and the profile files."""
 
 import numpy as np
-import pytest
 
 from survey import synthetic as S
 from survey.frame import LocalFrame
