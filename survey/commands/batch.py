@@ -15,42 +15,11 @@ import sys
 import textwrap
 
 from ..errors import InputError
-from .common import log_kwargs
+from .common import add_reading_arguments, log_kwargs
+from .flag import add_flag_options, flag_epilog
 
 # survey.batch (and through it the export and section code) is imported when the command runs,
 # not when the CLI builds its parser: every other command starts faster for it.
-
-#: Option groups taken over from ``trackframe flag`` (so both commands accept the same options).
-_FLAG_GROUPS = ("reading the log", "local frame", "limits", "detection", "output")
-_NOT_FROM_FLAG = {"log", "output", "help"}
-
-
-def _flag_parser() -> argparse.ArgumentParser:
-    """The ``flag`` sub-parser, built by flag's own ``add_parser``."""
-    from . import flag
-
-    holder = argparse.ArgumentParser(add_help=False)
-    flag.add_parser(holder.add_subparsers())
-    return holder._subparsers._group_actions[0].choices["flag"]
-
-
-def add_flag_options(parser: argparse.ArgumentParser) -> dict[str, argparse._ArgumentGroup]:
-    """Add every option of ``trackframe flag`` except LOG and -o to ``parser``, in flag's groups.
-
-    The option objects are shared with flag's parser (argparse's ``parents`` mechanism does the
-    same), so names, defaults, types and help cannot drift apart. Returns the groups by title.
-    """
-    src = _flag_parser()
-    groups: dict[str, argparse._ArgumentGroup] = {}
-    for g in src._action_groups:
-        if g.title not in _FLAG_GROUPS:
-            continue
-        dst = groups[g.title] = parser.add_argument_group(g.title, g.description)
-        for action in g._group_actions:
-            if action.dest not in _NOT_FROM_FLAG:
-                dst._add_action(action)
-    return groups
-
 
 def _jobs(text: str) -> int:
     try:
@@ -73,7 +42,7 @@ def add_parser(subparsers) -> None:
             "every log succeeded, 1 if any failed.",
             88,
         ),
-        epilog=_flag_parser().epilog
+        epilog=flag_epilog()
         + "\n\n"
         + textwrap.fill(
             "Running on a Dask cluster: start `dask scheduler` on a head node and `dask worker "
@@ -89,6 +58,7 @@ def add_parser(subparsers) -> None:
         metavar="PATH",
         help="log file, folder (its .gpx .nmea .csv ... files) or quoted glob pattern such as 'logs/**/*.gpx'",
     )
+    add_reading_arguments(p)
     groups = add_flag_options(p)
     groups["output"].add_argument(
         "-o", "--output", required=True, metavar="FILE", help="combined findings (.csv .xlsx .geojson) or - for CSV on stdout"

@@ -11,6 +11,11 @@ from ..readers import FORMATS
 def add_log_arguments(parser: argparse.ArgumentParser) -> None:
     """Add the LOG positional and the reading/frame options."""
     parser.add_argument("log", metavar="LOG", help="GNSS log: GPX 1.0/1.1, NMEA 0183 text or CSV")
+    add_reading_arguments(parser)
+
+
+def add_reading_arguments(parser: argparse.ArgumentParser) -> None:
+    """Add the options for reading a log and placing it in a frame (``log_kwargs`` reads them)."""
     group = parser.add_argument_group("reading the log")
     group.add_argument("--format", choices=FORMATS, help="log format (default: from the extension or content)")
     group.add_argument(

@@ -40,7 +40,7 @@ def _non_negative(text: str) -> float:
     return value
 
 
-def _preset_help() -> str:
+def flag_epilog() -> str:
     lines = ["presets (direct options override their values):"]
     for p in PRESETS.values():
         lines.append(f"  {p.name:<12} {p.summary}")
@@ -56,11 +56,21 @@ def add_parser(subparsers) -> None:
         description="Compute the profile of a log, flag sections whose radius is below a limit, whose "
         "|torsion| is above a limit, or whose plan radius is below the design-speed minimum "
         "R = V^2 / (127 (e + f)); add the hand-marked sections from the log's sidecar; export.",
-        epilog=_preset_help(),
+        epilog=flag_epilog(),
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     add_log_arguments(p)
     add_imu_arguments(p)
+    groups = add_flag_options(p)
+    groups["output"].add_argument(
+        "-o", "--output", required=True, metavar="FILE", help="output file (.csv .xlsx .geojson .gpx) or - for CSV on stdout"
+    )
+    p.set_defaults(run=run)
+
+
+def add_flag_options(p: argparse.ArgumentParser) -> dict[str, argparse._ArgumentGroup]:
+    """Add the limits, detection and output options (all but LOG and ``-o``) that ``flag`` and
+    ``batch`` share; returns the groups by title so a caller can add to them."""
     lim = p.add_argument_group("limits")
     lim.add_argument("--preset", choices=list(PRESETS), metavar="NAME", help="start from a preset (listed below)")
     lim.add_argument("--sharp-radius", type=positive_float, metavar="M", help="flag radius below M metres")
@@ -93,10 +103,9 @@ def add_parser(subparsers) -> None:
     )
     det.add_argument("--step", type=positive_float, default=1.0, metavar="M", help="station spacing (default 1 m)")
     out = p.add_argument_group("output")
-    out.add_argument("-o", "--output", required=True, metavar="FILE", help="output file (.csv .xlsx .geojson .gpx) or - for CSV on stdout")
     out.add_argument("--force", action="store_true", help="overwrite FILE if it exists")
     out.add_argument("--no-marks", action="store_true", help="ignore the hand-marked sections in the sidecar")
-    p.set_defaults(run=run)
+    return {"limits": lim, "detection": det, "output": out}
 
 
 def limits_from_args(args: argparse.Namespace) -> Limits:
