@@ -261,32 +261,15 @@ def run_one(path: str, options: BatchOptions, name: str | None = None) -> LogRes
     name
         How to name the log in the results (default ``path``).
     """
-    from . import pipeline  # looked up at call time so tests can stand in for run_profile
-    from .marks import MarkStore, file_sha256, sidecar_path
-    from .sections import all_sections, marks_outside
+    from .findings import flag_log
 
     name = path if name is None else name
     t0 = time.perf_counter()
     try:
-        warnings: list[str] = []
-        store = None
-        if options.use_marks:
-            try:
-                store = MarkStore.load(path)
-            except InputError as exc:
-                if exc.path == str(sidecar_path(path)):
-                    raise InputError(exc.path, f"{exc.message}; or run with --no-marks", exc.where) from None
-                raise
-            warnings.extend(store.warnings)
-        run = pipeline.run_profile(path, step_m=options.step_m, **options.log_kwargs)
-        profile = run.profile
-        marks = store.marks if store is not None else ()
-        for m in marks_outside(profile, marks):
-            top = float(profile.chainage_m[-1]) if len(profile) else 0.0
-            warnings.append(f"{name}: mark {m.id} ({m.start_m:g}-{m.end_m:g} m) reaches outside the profile (0-{top:g} m)")
-        sections = tuple(all_sections(profile, options.limits, marks))
-        sha = store.log_sha256 if store is not None else file_sha256(path)[0]
-        frame = profile.frame or (run.frame.describe() if hasattr(run.frame, "describe") else str(run.frame))
+        found = flag_log(path, options.limits, options.step_m, options.use_marks, **options.log_kwargs)
+        run, profile, sections = found.run, found.profile, found.sections
+        sha, frame = found.input_sha256, found.frame_text
+        warnings = [f"{name}: {w}" for w in found.warnings]
         features: tuple[dict, ...] = ()
         if options.geometry:
             from .export import feature_collection

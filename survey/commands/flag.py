@@ -15,7 +15,7 @@ from pathlib import Path
 from ..atomic import check_output_path
 from ..design import CAUTION, PRESETS, Limits, preset_limits
 from ..errors import InputError
-from ..sections import KIND_DESIGN, KINDS, all_sections, marks_outside
+from ..sections import KIND_DESIGN, KINDS
 from .common import add_imu_arguments, add_log_arguments, imu_kwargs, log_kwargs, positive_float
 
 
@@ -142,7 +142,8 @@ def _same_file(a: str, b: Path) -> bool:
 def run(args: argparse.Namespace) -> int:
     # Imported here so that building the parser (every command's start-up) stays light.
     from ..export import STDOUT, RunInfo, export_format, write_findings
-    from ..marks import MarkStore, file_sha256, sidecar_path
+    from ..findings import flag_log
+    from ..marks import sidecar_path
 
     output = args.output
     export_format(output)  # unknown extension: fail before any work
@@ -152,39 +153,14 @@ def run(args: argparse.Namespace) -> int:
         check_output_path(output, args.force)  # fail before the profile is computed
     limits = limits_from_args(args)
     say = sys.stderr if output == STDOUT else sys.stdout
-
-    store = None
-    if not args.no_marks:
-        try:
-            store = MarkStore.load(args.log)
-        except InputError as exc:
-            if exc.path == str(sidecar_path(args.log)):
-                raise InputError(exc.path, f"{exc.message}; or run with --no-marks", exc.where) from None
-            raise
-        for w in store.warnings:
-            print(f"trackframe: warning: {w}", file=sys.stderr)
-
-    from ..pipeline import run_profile
-
-    result = run_profile(args.log, step_m=args.step, **log_kwargs(args), **imu_kwargs(args))
-    profile = result.profile if hasattr(result, "profile") else result[3]
-    frame = result.frame if hasattr(result, "frame") else result[2]
-
-    marks = store.marks if store is not None else ()
-    for m in marks_outside(profile, marks):
-        print(
-            f"trackframe: warning: mark {m.id} ({m.start_m:g}-{m.end_m:g} m) reaches outside the profile "
-            f"(0-{float(profile.chainage_m[-1]) if len(profile) else 0:g} m)",
-            file=sys.stderr,
-        )
-    sections = all_sections(profile, limits, marks)
-
-    sha = store.log_sha256 if store is not None else file_sha256(args.log)[0]
-    frame_text = profile.frame or (frame.describe() if hasattr(frame, "describe") else str(frame))
+    found = flag_log(args.log, limits, args.step, not args.no_marks, **log_kwargs(args), **imu_kwargs(args))
+    for w in found.warnings:
+        print(f"trackframe: warning: {w}", file=sys.stderr)
+    profile, sections = found.profile, list(found.sections)
     run_info = RunInfo(
         input_path=str(args.log),
-        input_sha256=sha,
-        frame=frame_text,
+        input_sha256=found.input_sha256,
+        frame=found.frame_text,
         limits=limits.as_dict(),
         settings={
             "preset": args.preset,
