@@ -190,32 +190,30 @@ def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 4) -> np.ndarra
     """
     n = len(track)
     suspect = np.zeros(n, bool)
+    if n < 5:
+        return suspect
+    # Horizontal positions in metres along the chain of fixes (equirectangular per step), once:
+    # dropping a fix later does not move the others.
+    pos_all = np.r_[np.zeros((1, 2)), np.cumsum(local_steps_m(track)[:, :2], axis=0)]
     for _ in range(passes):
         idx = np.flatnonzero(~suspect)
         if idx.size < 5:
             break
-        sub = track.take(idx)
-        # Horizontal positions in metres relative to the first fix (equirectangular per step).
-        pos = np.r_[np.zeros((1, 2)), np.cumsum(local_steps_m(sub)[:, :2], axis=0)]
-        t = sub.time_s
-        seg = sub.segment
-        i = np.arange(2, len(sub) - 2)
-        same = (seg[i - 2] == seg[i]) & (seg[i + 2] == seg[i])
-        nodes = np.stack([t[i - 2], t[i - 1], t[i + 1], t[i + 2]], axis=1)
-        distinct = np.all(np.diff(nodes, axis=1) > 0, axis=1) & (nodes[:, 1] < t[i]) & (t[i] < nodes[:, 2])
-        i = i[same & distinct]
+        pos, t, seg = pos_all[idx], track.time_s[idx], track.segment[idx]
+        i = np.arange(2, len(idx) - 2)
+        t0, t1, t2, t3, ti = t[i - 2], t[i - 1], t[i + 1], t[i + 2], t[i]
+        ok = (seg[i - 2] == seg[i]) & (seg[i + 2] == seg[i]) & (t0 < t1) & (t1 < ti) & (ti < t2) & (t2 < t3)
+        i, t0, t1, t2, t3, ti = i[ok], t0[ok], t1[ok], t2[ok], t3[ok], ti[ok]
         if i.size == 0:
             break
-        nodes = np.stack([t[i - 2], t[i - 1], t[i + 1], t[i + 2]], axis=1)
-        weights = _lagrange_weights(nodes, t[i])
-        neighbours = np.stack([pos[i - 2], pos[i - 1], pos[i + 1], pos[i + 2]], axis=1)  # (m, 4, 2)
-        resid = pos[i] - np.einsum("mk,mkd->md", weights, neighbours)
+        w0, w1, w2, w3 = _lagrange_weights((t0, t1, t2, t3), ti)
+        resid = pos[i] - (w0[:, None] * pos[i - 2] + w1[:, None] * pos[i - 1]
+                          + w2[:, None] * pos[i + 1] + w3[:, None] * pos[i + 2])
         sigma = robust_sigma(resid.ravel())
         if not sigma > 0:
             break
-        size = np.linalg.norm(resid, axis=1)
-        full = np.zeros(len(sub))
-        full[i] = size
+        full = np.zeros(len(idx))
+        full[i] = np.hypot(resid[:, 0], resid[:, 1])
         peak = (full >= np.r_[0.0, full[:-1]]) & (full >= np.r_[full[1:], 0.0])
         bad = (full > z * sigma) & peak
         if not bad.any():
@@ -224,15 +222,16 @@ def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 4) -> np.ndarra
     return suspect
 
 
-def _lagrange_weights(nodes: np.ndarray, at: np.ndarray) -> np.ndarray:
-    """(m, k) weights of the Lagrange polynomial through ``nodes[m, :]`` evaluated at ``at[m]``."""
-    k = nodes.shape[1]
-    w = np.ones_like(nodes)
-    for j in range(k):  # loops over the 4 nodes, not over fixes
-        for q in range(k):
+def _lagrange_weights(nodes: tuple[np.ndarray, ...], at: np.ndarray) -> list[np.ndarray]:
+    """Weights of the Lagrange polynomial through ``nodes`` (each an (m,) array) at ``at``."""
+    weights = []
+    for j, xj in enumerate(nodes):  # loops over the 4 nodes, not over fixes
+        w = np.ones_like(at)
+        for q, xq in enumerate(nodes):
             if q != j:
-                w[:, j] *= (at - nodes[:, q]) / (nodes[:, j] - nodes[:, q])
-    return w
+                w *= (at - xq) / (xj - xq)
+        weights.append(w)
+    return weights
 
 
 def estimate_noise_m(steps_m: np.ndarray) -> float:
