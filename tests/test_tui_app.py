@@ -339,3 +339,30 @@ def test_radius_view_and_plan_follow_switch_on_their_keys(log_copy):
     labels = [line[:7].strip() for line in charts[1:4] if line[7] == "┤"]
     assert len(labels) == 2 and all(lab.endswith((" m", " km")) for lab in labels)
     assert plan[0].startswith("plan (window)")
+
+
+def test_readout_shows_bank_and_twist_when_an_imu_log_was_fused():
+    # The demo van carries a 100 Hz IMU log (demo_tracks/make_demo.py); with --imu the viewer's
+    # readout adds the bank (roll) angle and its change per metre.
+    import asyncio
+    from pathlib import Path
+
+    from survey.design import preset_limits
+    from survey.pipeline import run_profile
+    from tui.app import TrackApp
+    from tui.widgets import Readout
+
+    demo = Path(__file__).resolve().parents[1] / "demo_tracks"
+    profile = run_profile(str(demo / "van_route_tunnel.nmea"), imu=str(demo / "van_route_tunnel_imu.csv")).profile
+
+    async def go():
+        app = TrackApp(profile=profile, limits=preset_limits("road-80"))
+        async with app.run_test(size=(80, 24)) as pilot:
+            while app.model is None:
+                await pilot.pause(0.01)
+            app.model.goto(int(np.searchsorted(profile.chainage_m, 500.0)))
+            return app.query_one(Readout).lines()
+
+    lines = asyncio.run(go())
+    assert any(line.startswith("bank   +") for line in lines)  # left-hand superelevated arc
+    assert any(line.startswith("twist  ") for line in lines)

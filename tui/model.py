@@ -356,6 +356,11 @@ class ViewModel:
             "lateral_accel_mps2": float(p.lateral_accel_mps2[i]),
             "time_s": float(p.time_s[i]),
             "segment": int(p.segment[i]),
+            # IMU-fused logs only (None otherwise)
+            "bank_deg": None if p.bank_deg is None else float(p.bank_deg[i]),
+            "bank_sd_deg": None if p.bank_sd_deg is None else float(p.bank_sd_deg[i]),
+            "twist_deg_per_m": None if p.twist_deg_per_m is None else float(p.twist_deg_per_m[i]),
+            "imu_outage": None if p.imu_outage is None else bool(p.imu_outage[i]),
         }
 
     # -- header facts --------------------------------------------------------------------------

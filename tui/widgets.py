@@ -574,6 +574,12 @@ class Readout(Widget):
             f"time   {fmt.clock(v['time_s'], date=self.size.width >= 40)}{tail}",
             f"in     {' '.join(s.id for s in here) if here else '—'}  seg {v['segment']}",
         ]
+        if v["bank_deg"] is not None:  # an IMU log was fused
+            b, bs, tw = v["bank_deg"], v["bank_sd_deg"], v["twist_deg_per_m"]
+            bank = f"{fmt.signed(b, '.1f')}° ± {bs:.1f}" if math.isfinite(b) else fmt.NA
+            twist = f"{fmt.signed(tw, '.2f')}°/m" if math.isfinite(tw) else fmt.NA
+            where = "  IMU only" if v["imu_outage"] else ""  # inside a GNSS outage
+            lines += [f"bank   {bank}", f"twist  {twist}{where}"]
         lim = m.limits
         if lim.design_on:
             from survey.design import balance_speed_kmh
