@@ -32,7 +32,11 @@ Steps (one-way):
    (heading uncertain by more than ~1/20 rad) take the geometry of the nearest measured station.
    Chainage is continuous over the whole log: a segment starts where the previous one ended plus
    the straight distance across the gap, and its first station is the next multiple of the step.
-7. Stations every ``step_m`` of chainage; geometry from the estimate (``survey.geometry``). Torsion
+7. Heights follow the local grade plane through the horizontal estimate
+   (``survey.smooth.grade_plane_correction``; ``grade_window_scales`` vertical smoothing scales
+   of window, 0 = off): a path in a tilted plane stays in it although heights are smoothed more
+   strongly than plan position, so it shows no false torsion.
+8. Stations every ``step_m`` of chainage; geometry from the estimate (``survey.geometry``). Torsion
    is NaN with reason TORSION_LOW_CURVATURE where kappa < ``kappa_sigmas`` x its 1-sigma.
 """
 
@@ -62,6 +66,7 @@ DEFAULTS = {
     "speed_bias": "twice",
     "wander_ratio_max": 4.0,
     "station_chunk": 100_000,
+    "grade_window_scales": 4.0,
 }
 
 
@@ -159,7 +164,8 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, s
         for sid, t, y, bh, bv, scr_h, scr_v in stretches:
             yield sid, t[0], t[-1], smooth_stretch(t, y, bh, bv, model_h, model_v if has_height else None, scr_h,
                                                    scr_v, robust_iterations=cfg["robust_iterations"],
-                                                   twice=cfg["speed_bias"] == "twice")
+                                                   twice=cfg["speed_bias"] == "twice",
+                                                   grade_window_scales=cfg["grade_window_scales"] or None)
 
     cols, knots, lengths = _place_stations(smoothed_stretches(), step_m, has_time, has_height, cfg, messages)
     if cols is None:
@@ -517,7 +523,7 @@ def _settings(cfg, step_m, model_h: NoiseModel, model_v: NoiseModel | None, use_
     if model_v is not None:
         out.update(snap_psd_v_m2_s7=model_v.snap_psd, var_scale_v=model_v.var_scale,
                    wander_var_v_m2=model_v.wander_var_m2)
-    for k in ("n_samples", "sd_pool_knots", "seed", "wander_tau_s", "vertical_factor", "stop_sigmas", "slow_sigmas", "kappa_sigmas", "accuracy_cap", "robust_iterations", "speed_bias", "wander_ratio_max"):
+    for k in ("n_samples", "sd_pool_knots", "seed", "wander_tau_s", "vertical_factor", "stop_sigmas", "slow_sigmas", "kappa_sigmas", "accuracy_cap", "robust_iterations", "speed_bias", "wander_ratio_max", "grade_window_scales"):
         out[k] = cfg[k]
     return out
 
