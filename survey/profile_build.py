@@ -67,6 +67,7 @@ DEFAULTS = {
     "wander_ratio_max": 4.0,
     "station_chunk": 100_000,
     "grade_window_scales": 4.0,
+    "refit_off_plane": True,
 }
 
 
@@ -301,7 +302,7 @@ def _fit_models(stretches, use_acc, has_height, cfg):
     ``fit_fixes`` fixes of the longest ones); screened outliers are left out of the fit."""
     nfit = cfg["fit_fixes"]
     biggest = sorted(stretches, key=lambda s: -len(s[1]))[:3]
-    pieces_h, pieces_v = [], []
+    pieces_h, pieces_v, raw = [], [], []
     for _, t, y, bh, bv, scr_h, scr_v in biggest:
         a = max(0, len(t) // 2 - nfit // 2)
         sl = slice(a, a + nfit)
@@ -310,6 +311,7 @@ def _fit_models(stretches, use_acc, has_height, cfg):
             zz = np.isfinite(y[sl, 2])
             if zz.sum() >= cfg["min_fixes"]:
                 pieces_v.append((t[sl][zz], y[sl, 2:][zz], np.where(scr_v[sl], np.inf, bv[sl])[zz]))
+                raw.append((t[sl], y[sl], bh[sl], bv[sl], scr_h[sl], scr_v[sl], zz))
     cap = cfg["accuracy_cap"] if use_acc else None
     tau = cfg["wander_tau_s"]
 
@@ -320,7 +322,36 @@ def _fit_models(stretches, use_acc, has_height, cfg):
     ratio = cfg["wander_ratio_max"] if cap is None else None
     fh = fit_noise(pieces_h, tau, start(pieces_h, 0), cap, ratio)
     fv = fit_noise(pieces_v, tau, start(pieces_v, 0), cap, ratio) if has_height and pieces_v else None
+    if fv is not None and cfg["grade_window_scales"] and cfg["refit_off_plane"]:
+        off = [_off_plane(piece, fh.model, fv.model, cfg) for piece in raw]
+        if any(r is not None for r in off):  # some grade plane trusted: fit what is off it
+            pieces_r = [(pv[0], (pv[1][:, 0] if r is None else r)[:, None], pv[2]) for pv, r in zip(pieces_v, off)]
+            fr = fit_noise(pieces_r, tau, start(pieces_r, 0), cap, ratio, q_max=fv.model.snap_psd)
+            # taking the in-plane climb out can only leave smoother heights; if it does not (the
+            # grade fit is trusted only in parts of the piece), the plane did not describe them
+            if fr.model.snap_psd < fv.model.snap_psd:
+                fv = fr
     return fh, fv
+
+
+def _off_plane(piece, model_h, model_v, cfg) -> np.ndarray | None:
+    """Heights of one fit piece less the climb along the local grade plane, at its fixes with a
+    height: z_i - P(t_i), P(t) = integral of g(t) . v_h(t) dt (``survey.smooth.local_grade``
+    through a first smooth with the raw-height noise). On a plane path this leaves the receiver
+    error plus a constant, so the vertical noise is fitted on what the vertical smoother
+    actually has to remove, not on in-plane bends it would otherwise have to follow; where no
+    plane is trusted g = 0 and the heights are fitted as they are (None: no grade trusted)."""
+    t, y, bh, bv, scr_h, scr_v, zz = piece
+    sm = smooth_stretch(t, y, bh, bv, model_h, model_v, scr_h, scr_v, robust_iterations=0,
+                        grade_window_scales=cfg["grade_window_scales"])
+    gh = sm.groups[0]
+    if gh.grade is None or not np.any(gh.grade):
+        return None
+    step = min(0.5 * gh.h, float(np.median(np.diff(t))))
+    tg = np.linspace(t[0], t[-1], int(np.ceil((t[-1] - t[0]) / step)) + 1)
+    rate = np.sum(gh.grade_at(tg) * gh.at(tg)[:, :2, 1], axis=1)
+    climb = np.concatenate(([0.0], np.cumsum(0.5 * (rate[1:] + rate[:-1]) * np.diff(tg))))
+    return y[zz, 2] - np.interp(t[zz], tg, climb)
 
 
 def _uncertainty(sm, t_start, t_end, step_m, cfg, rng) -> dict:

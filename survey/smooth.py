@@ -486,11 +486,19 @@ def resmooth_path(system: AxisSystem, U: FloatArray, x: FloatArray) -> FloatArra
     xp = x.copy()
     if d > N_PATH:
         xp[:, N_PATH:, :] = 0.0
-    y2 = fitted(system, xp)
+    return solve_columns(system, U, fitted(system, xp))
+
+
+def solve_columns(system: AxisSystem, U: FloatArray, y: FloatArray) -> FloatArray:
+    """Knot states (K, d, c) of the same linear smoother (fixes, weights, factor) applied to other
+    data ``y`` (n, c) at the same fixes: only the right-hand side changes. Fixes left out of the
+    system (weight 0) are left out here too."""
+    d = system.dim
     B = _tables(d)[0]
-    s = _interval_sums(system.design, system.w[:, None] * y2, 8) @ B.T  # (K-1, A, 2d)
+    yw = np.where(system.w[:, None] > 0, y, 0.0) * system.w[:, None]
+    s = _interval_sums(system.design, yw, 8) @ B.T  # (K-1, c, 2d)
     K = system.design.n_knots
-    rhs = np.zeros((K, d, y2.shape[1]))
+    rhs = np.zeros((K, d, y.shape[1]))
     rhs[:-1] += np.swapaxes(s[:, :, :d], 1, 2)
     rhs[1:] += np.swapaxes(s[:, :, d:], 1, 2)
     return cho_solve_banded((U, False), rhs.reshape(K * d, -1), check_finite=False).reshape(K, d, -1)
@@ -671,6 +679,7 @@ def fit_noise(
     start_var: float,
     cap: float | None = None,
     wander_ratio_max: float | None = None,
+    q_max: float | None = None,
 ) -> FitResult:
     """Choose the snap density q, the white variance and the wander variance by maximum marginal
     likelihood.
@@ -696,6 +705,9 @@ def fit_noise(
         Without stated accuracy (``cap`` None): bound the wander variance to this many times the
         white variance (None = free). See "Wander without stated accuracy" in the module
         docstring.
+    q_max
+        Search the coarse grid over q only up to this snap density (a refit that is only used
+        when it finds smoother data than a first fit).
 
     Returns
     -------
@@ -745,6 +757,8 @@ def fit_noise(
         base = [np.log(0.9 / 0.1), np.log(f0 / (1.0 - f0))]
     # Coarse grid over q first (the likelihood is flat far from its maximum), then refine all.
     grid = np.arange(-16.0, 10.01, 1.0) * np.log(10.0)
+    if q_max is not None:
+        grid = grid[grid <= max(np.log(q_max), grid[0])]
     scores = [negll(np.array([g] + base)) for g in grid]
     theta0 = np.array([grid[int(np.argmin(scores))]] + base)
     step = np.array([1.0, 1.0, 1.5])
@@ -963,7 +977,7 @@ def smooth_stretch(
         for g, (axes, m, var, design) in enumerate(prepared):
             if redo[g]:
                 w = w_h if axes[0] < 2 else w_v
-                results[g] = _smooth_group((Yc if g == 0 else Y)[:, cols[g]], var, w, m, design)
+                results[g] = _smooth_group(Y[:, list(axes)], var, w, m, design)
         if it == robust_iterations:
             break
         res_h = Y[:, :2] - results[0][3][:, :2]
@@ -980,6 +994,11 @@ def smooth_stretch(
         if not any(redo):
             break
     groups = []
+    for g, (axes, m, var, design) in enumerate(prepared):
+        if len(cols[g]) > len(axes):  # carried columns: one more right-hand side, final weights
+            sysm, U, x, f = results[g]
+            more = solve_columns(sysm, U, Yc[:, cols[g][len(axes):]])
+            results[g] = (sysm, U, np.concatenate((x, more), axis=2), f)
     for (axes, m, var, design), (sysm, U, x, _), c in zip(prepared, results, cols):
         conv = design.h ** -np.arange(N_PATH)
         states = np.swapaxes(x[:, :N_PATH, :], 1, 2) * conv  # (K, A, 4)

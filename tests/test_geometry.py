@@ -50,18 +50,57 @@ def test_rtk_helix_curvature_and_torsion_match_closed_form():
     assert np.nanmedian(np.abs(p.torsion_per_m[core] / t_true - 1)) < 0.02
 
 
-@pytest.mark.xfail(strict=True, reason="known shortfall: p95 |tau| is 15-27 % of kappa on dual-frequency "
-                   "heights (target 5 %); horizontal and vertical are smoothed with their own strengths, "
-                   "whose different attenuation of one bend leaves a twist, and one shared strength lets "
-                   "the 1.7x vertical noise through (measured 120-200 %)")
-def test_plane_curve_has_near_zero_torsion_despite_height_noise():
-    # Textbook fact: a plane curve has tau = 0. Issue target: 95th percentile |tau| <= 5 % of the
-    # typical kappa.
+@pytest.mark.parametrize("seed", [5, 7])
+def test_plane_curve_has_near_zero_torsion_despite_height_noise(seed):
+    # Textbook fact: a plane curve has tau = 0 (do Carmo 1976). Issue target: 95th percentile
+    # |tau| <= 5 % of the typical kappa (measured 0.3-1.9 % on seeds 5-12; 6-12 % before heights
+    # followed the local grade plane). Seed 7 is the worst of those.
     traj = S.plane_loop(tilt_deg=6.0)
-    p = profile_of(S.add_gnss_error(traj, "dual", np.random.default_rng(5)))
+    p = profile_of(S.add_gnss_error(traj, "dual", np.random.default_rng(seed)))
     tau = p.torsion_per_m[np.isfinite(p.torsion_per_m)]
     assert len(tau) > 0.5 * len(p)
     assert np.percentile(np.abs(tau), 95) <= 0.05 * np.median(p.curvature_per_m)
+
+
+@pytest.mark.xfail(strict=True, reason="known shortfall: p95 |tau| 6-17 % of kappa on seeds 21-26 (32-54 % "
+                   "before heights followed the grade plane); the phone's ~5 m vertical wander over a "
+                   "76 s lap is a real-looking height signal that bends the path out of its plane")
+def test_steeper_plane_curve_with_phone_grade_error_still_has_near_zero_torsion():
+    # Textbook fact: tau = 0 for a plane curve (do Carmo 1976); a 12-degree pad logged with a
+    # phone at 5 Hz (metres of error, heights 1.6x noisier: REFERENCES.md GNSS accuracy). Same
+    # issue target, 5 % of the typical kappa.
+    traj = S.plane_loop(tilt_deg=12.0)
+    p = profile_of(S.add_gnss_error(traj, "phone", np.random.default_rng(21)))
+    tau = p.torsion_per_m[np.isfinite(p.torsion_per_m)]
+    assert len(tau) > 0.3 * len(p)
+    assert np.percentile(np.abs(tau), 95) <= 0.05 * np.median(p.curvature_per_m)
+
+
+def test_smoothed_heights_stay_on_the_plane_of_the_fixes_whatever_the_two_strengths():
+    # Linearity of the smoother (x_hat = Lambda^-1 H^T W y): heights that lie exactly on the plane
+    # z = c + g . en through the NOISY plan fixes must come out on that plane through the smoothed
+    # plan path, although heights are smoothed far more strongly than plan position. Then the
+    # vertical velocity, acceleration and jerk are g . (their plan counterparts), the condition
+    # for tau = 0 (the path lies in a plane: do Carmo 1976). Tolerance 1 % of the in-plane value
+    # (the grade fit's ridge shrinks g by ~0.1 %); without the grade plane it is off by ~30 %.
+    from survey.smooth import NoiseModel, smooth_stretch
+
+    traj = S.plane_loop(tilt_deg=0.0)
+    rng = np.random.default_rng(3)
+    g, c = np.array([0.04, -0.09]), 12.0
+    en = traj.enu_m[:, :2] + rng.normal(0.0, 0.3, (len(traj.time_s), 2))
+    enu = np.column_stack([en, c + en @ g])
+    n = len(enu)
+    model_h = NoiseModel(snap_psd=1e-4, var_scale=0.09)
+    model_v = NoiseModel(snap_psd=1e-8, var_scale=0.25)  # ~2.5x the horizontal smoothing scale
+    sm = smooth_stretch(traj.time_s, enu, np.ones(n), np.ones(n), model_h, model_v)
+    t = traj.time_s[(traj.time_s > 10) & (traj.time_s < traj.time_s[-1] - 10)]
+    st = sm.at(t)
+    for d in (1, 2, 3):
+        in_plane = st[:, :2, d] @ g
+        assert np.max(np.abs(st[:, 2, d] - in_plane)) <= 0.01 * np.max(np.abs(in_plane)), d
+    off = smooth_stretch(traj.time_s, enu, np.ones(n), np.ones(n), model_h, model_v, grade_window_scales=None).at(t)
+    assert np.max(np.abs(off[:, 2, 3] - off[:, :2, 3] @ g)) > 0.1 * np.max(np.abs(off[:, :2, 3] @ g))
 
 
 def test_clothoid_curvature_grows_linearly_with_chainage():
