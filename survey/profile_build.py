@@ -35,7 +35,12 @@ Steps (one-way):
 7. Heights follow the local grade plane through the horizontal estimate
    (``survey.smooth.grade_plane_correction``; ``grade_window_scales`` vertical smoothing scales
    of window, 0 = off): a path in a tilted plane stays in it although heights are smoothed more
-   strongly than plan position, so it shows no false torsion.
+   strongly than plan position, so it shows no false torsion. With ``refit_off_plane`` the
+   vertical noise is fitted again on the heights less their climb along that plane
+   (``_off_plane``) and kept when it finds them smoother: the in-plane climb is signal the
+   vertical smoother no longer has to follow, so it can remove more height noise (tilted
+   dual-frequency loop, seed 2024: p95 |tau|/kappa 8.5 % before the grade plane, 3.9 % with it,
+   0.4 % with the refit; the level loop 0.3 %).
 8. Stations every ``step_m`` of chainage; geometry from the estimate (``survey.geometry``). Torsion
    is NaN with reason TORSION_LOW_CURVATURE where kappa < ``kappa_sigmas`` x its 1-sigma.
 """
