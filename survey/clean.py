@@ -232,15 +232,3 @@ def _lagrange_weights(nodes: tuple[np.ndarray, ...], at: np.ndarray) -> list[np.
                 w *= (at - xq) / (xj - xq)
         weights.append(w)
     return weights
-
-
-def estimate_noise_m(steps_m: np.ndarray) -> float:
-    """Robust per-axis white-noise sigma from second differences of positions, m.
-
-    For white noise of sigma s the second difference has sigma s*sqrt(6); smooth motion adds
-    little at GNSS rates. Used only to set jitter thresholds, never as a smoothing constant.
-    """
-    if len(steps_m) < 3:
-        return 0.0
-    d2 = np.diff(steps_m[:, :2], axis=0).ravel()
-    return robust_sigma(d2) / np.sqrt(6.0)
