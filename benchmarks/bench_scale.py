@@ -133,15 +133,7 @@ def survey_drive(length_m: float, rng: np.random.Generator):
     radii 40-600 m on alternating sides, on a gentle grade line."""
     from survey import synthetic as syn
 
-    pieces, total = [], 0.0
-    while total < length_m:
-        r = float(rng.choice([40.0, 90.0, 200.0, 600.0]))
-        k = (1.0 if rng.random() < 0.5 else -1.0) / r
-        tangent = float(rng.uniform(150.0, 600.0))
-        spiral = max(20.0, min(120.0, 0.3 * r))
-        arc = float(rng.uniform(0.3, 1.0)) * np.pi * r
-        pieces += [("tangent", tangent, 0.0), ("spiral", spiral, k), ("arc", arc, k), ("spiral", spiral, 0.0)]
-        total += tangent + 2 * spiral + arc
+    pieces, total = syn.random_drive_pieces(length_m, rng)
     return syn.alignment_curve(pieces, [(total, 0.02, -0.02)], start_heading_rad=0.4)
 
 

@@ -62,16 +62,9 @@ RATE_HZ = 10.0
 def _drive_block(length_m: float, rng, start, heading_rad: float, grade: float) -> tuple[syn.Curve, float]:
     """One ~``length_m`` stretch of the drive starting at ``start`` with the given heading and
     grade; returns the curve and its end grade."""
-    pieces = []
-    total = 0.0
-    while total < length_m:
-        r = float(rng.choice([15.0, 40.0, 90.0, 200.0, 600.0]))
-        k = (1.0 if rng.random() < 0.5 else -1.0) / r
-        tangent = float(rng.uniform(150.0, 800.0))
-        spiral = max(20.0, min(120.0, 0.3 * r))
-        arc = float(rng.uniform(0.3, 1.2)) * np.pi * r
-        pieces += [("tangent", tangent, 0.0), ("spiral", spiral, k), ("arc", arc, k), ("spiral", spiral, 0.0)]
-        total += tangent + 2 * spiral + arc
+    pieces, total = syn.random_drive_pieces(
+        length_m, rng, radii_m=(15.0, 40.0, 90.0, 200.0, 600.0), tangent_m=(150.0, 800.0), arc_turn_halfturns=(0.3, 1.2)
+    )
     grades = []
     g, done = grade, 0.0
     while done < total:

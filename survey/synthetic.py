@@ -341,6 +341,33 @@ def switchback_curve(
     return alignment_curve(pieces, grades=[(total, grade, grade)])
 
 
+def random_drive_pieces(
+    length_m: float,
+    rng: np.random.Generator,
+    radii_m: Sequence[float] = (40.0, 90.0, 200.0, 600.0),
+    tangent_m: tuple[float, float] = (150.0, 600.0),
+    arc_turn_halfturns: tuple[float, float] = (0.3, 1.0),
+) -> tuple[list[tuple[str, float, float]], float]:
+    """Plan pieces of an invented drive of at least ``length_m``: tangent, clothoid, arc,
+    clothoid groups on random sides, for ``alignment_curve``.
+
+    Each group draws a radius from ``radii_m``, a side, a tangent length uniform in ``tangent_m``
+    and an arc of U(``arc_turn_halfturns``) x pi x R; clothoids are 0.3 R long, clipped to
+    20-120 m. Returns the pieces and their total plan length, m.
+    """
+    pieces: list[tuple[str, float, float]] = []
+    total = 0.0
+    while total < length_m:
+        r = float(rng.choice(list(radii_m)))
+        k = (1.0 if rng.random() < 0.5 else -1.0) / r
+        tangent = float(rng.uniform(*tangent_m))
+        spiral = max(20.0, min(120.0, 0.3 * r))
+        arc = float(rng.uniform(*arc_turn_halfturns)) * np.pi * r
+        pieces += [("tangent", tangent, 0.0), ("spiral", spiral, k), ("arc", arc, k), ("spiral", spiral, 0.0)]
+        total += tangent + 2 * spiral + arc
+    return pieces, total
+
+
 def concat_curves(curves: Sequence[Curve], name: str = "route") -> Curve:
     """Join curves end to end by parameter (each keeps its own coordinates: build them so that
     each starts where the previous ends). Handy to compose scenes for the demo generator."""
