@@ -78,11 +78,14 @@ def _nmea_angle(value: float, is_lat: bool) -> tuple[str, str]:
 def nmea_text(track: Track, geoid_separation_m: float = 0.0, talker: str = "GN") -> str:
     """GGA + RMC per fix. ``track.height_m`` is taken as ellipsoidal; GGA altitude is written as
     height minus ``geoid_separation_m`` (MSL) with the separation in its own field, so a reader
-    recovers the ellipsoidal height as altitude + separation (NMEA 0183)."""
+    recovers the ellipsoidal height as altitude + separation (NMEA 0183). RMC carries the speed
+    over ground (knots) and true course (degrees) when the Track has them (empty fields
+    otherwise; NMEA 0183 v4.10 RMC layout)."""
     if not track.has_time:
         raise ValueError("NMEA needs times")
     lines = []
     speed = track.speed_mps if track.speed_mps is not None else np.full(len(track), np.nan)
+    course = track.course_deg if track.course_deg is not None else np.full(len(track), np.nan)
     for i in range(len(track)):
         dt = datetime.fromtimestamp(float(track.time_s[i]), tz=timezone.utc)
         hms = dt.strftime("%H%M%S") + f".{dt.microsecond // 10000:02d}"
@@ -94,23 +97,25 @@ def nmea_text(track: Track, geoid_separation_m: float = 0.0, talker: str = "GN")
         alt = f"{h - geoid_separation_m:.3f},M,{geoid_separation_m:.3f},M" if np.isfinite(h) else ",,,"
         lines.append(nmea_sentence(f"{talker}GGA,{hms},{lat},{ns},{lon},{ew},2,{sats:02d},{hdop:.1f},{alt},,"))
         kn = "" if not np.isfinite(speed[i]) else f"{speed[i] / KNOT_MPS:.3f}"
-        lines.append(nmea_sentence(f"{talker}RMC,{hms},A,{lat},{ns},{lon},{ew},{kn},,{dt:%d%m%y},,,D"))
+        cog = "" if not np.isfinite(course[i]) else f"{course[i] % 360.0:.2f}"
+        lines.append(nmea_sentence(f"{talker}RMC,{hms},A,{lat},{ns},{lon},{ew},{kn},{cog},{dt:%d%m%y},,,D"))
     return "\r\n".join(lines) + "\r\n"
 
 
 def csv_text(track: Track, height_column: str = "height_m") -> str:
-    """CSV with header ``time,lat,lon,<height_column>[,accuracy_m]``; ISO 8601 times."""
+    """CSV with header ``time,lat,lon,<height_column>[,accuracy_m][,speed_mps][,course_deg]``
+    (optional columns only when the Track has them; empty cells for NaN); ISO 8601 times."""
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     header = ["time", "lat", "lon", height_column]
-    if track.accuracy_m is not None:
-        header.append("accuracy_m")
+    extra = [(name, getattr(track, name)) for name in ("accuracy_m", "speed_mps", "course_deg")
+             if getattr(track, name) is not None]
+    header += [name for name, _ in extra]
     w.writerow(header)
     times = iso_times(track.time_s) if track.has_time else [""] * len(track)
     for i in range(len(track)):
         row = [times[i], f"{track.lat_deg[i]:.8f}", f"{track.lon_deg[i]:.8f}", f"{track.height_m[i]:.3f}"]
-        if track.accuracy_m is not None:
-            row.append(f"{track.accuracy_m[i]:.3f}")
+        row += [f"{v[i]:.3f}" if np.isfinite(v[i]) else "" for _, v in extra]
         w.writerow(row)
     return buf.getvalue()
 

@@ -87,6 +87,10 @@ class Track:
         GGA fix quality indicator (0 invalid, 1 GPS, 2 DGPS, 4 RTK fixed, 5 RTK float, ...), float.
     speed_mps
         Speed over ground reported by the receiver, m/s.
+    course_deg
+        Course over ground reported by the receiver: true course (direction of travel, not the
+        heading of the body), degrees clockwise from true north in [0, 360). With ``speed_mps``
+        it gives the horizontal velocity east = v sin(course), north = v cos(course).
     suspect
         Boolean per fix: ``True`` where cleaning judged the fix physically impossible (multipath
         jump). Suspect fixes stay in the Track so counts and exports can show them; the smoother
@@ -105,6 +109,7 @@ class Track:
     satellites: FloatArray | None = None
     fix_quality: FloatArray | None = None
     speed_mps: FloatArray | None = None
+    course_deg: FloatArray | None = None
     suspect: NDArray[np.bool_] | None = None
 
     def __post_init__(self) -> None:
@@ -167,7 +172,7 @@ def make_track(
 
     ``height_m=None`` gives all-NaN heights with ``height_ref`` forced to ``"none"``;
     ``segment=None`` puts every fix in segment 0. ``optional`` takes the optional arrays by name
-    (``accuracy_m``, ``hdop``, ``satellites``, ``fix_quality``, ``speed_mps``); ``None`` values
+    (``accuracy_m``, ``hdop``, ``satellites``, ``fix_quality``, ``speed_mps``, ``course_deg``); ``None`` values
     are dropped.
     """
     lat = np.asarray(lat_deg, dtype=np.float64)

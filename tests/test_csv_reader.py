@@ -283,3 +283,41 @@ def test_read_log_picks_the_csv_reader_and_passes_options(tmp_path):
     )
     assert track.source.format == "csv" and track.height_ref == HEIGHT_MSL
     assert (track.lat_deg[0], track.height_m[0], track.time_s[0]) == (48.5, 500.0, 1714564800.0)
+
+
+# --- course over ground --------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("name", ["course", "course_deg", "Course (deg)", "heading_deg", "track_deg", "COG"])
+def test_course_column_spellings_are_recognised(name):
+    track = read_csv("a.csv", csv_bytes(f"lat,lon,speed,{name}", "1,2,3,271.5", "1,2,0,"))
+    assert track.course_deg[0] == 271.5
+    assert np.isnan(track.course_deg[1])  # empty cell: no course (standing still)
+
+
+@pytest.mark.parametrize("name", ["heading", "track"])
+def test_bare_heading_or_track_is_not_taken_as_course(name):
+    # a bare "heading" may be the body heading, "track" a track number: not course over ground
+    track = read_csv("a.csv", csv_bytes(f"lat,lon,{name}", "1,2,30"))
+    assert track.course_deg is None
+
+
+def test_course_out_of_range_names_the_line():
+    with pytest.raises(InputError) as err:
+        read_csv("van.csv", csv_bytes("lat,lon,course", "1,2,10", "1,2,400"))
+    assert "line 3" in str(err.value) and "course" in str(err.value) and "van.csv" in str(err.value)
+
+
+def test_speed_and_course_survive_a_round_trip_through_logwrite(tmp_path):
+    from survey.logwrite import csv_text, write_text
+    from survey.track import make_track
+
+    course = np.array([np.nan, 45.25, 181.5, 359.75])
+    speed = np.array([0.0, 3.5, 12.25, 20.0])
+    src = make_track("x", "csv", 1.78e9 + np.arange(4.0), [46.1] * 4, [7.9] * 4, [500.0] * 4,
+                     speed_mps=speed, course_deg=course)
+    path = tmp_path / "r.csv"
+    write_text(str(path), csv_text(src))
+    back = read_log(str(path))
+    np.testing.assert_array_equal(back.course_deg, course)  # 3 decimals hold these exactly; NaN stays NaN
+    np.testing.assert_array_equal(back.speed_mps, speed)

@@ -382,3 +382,83 @@ def test_read_log_picks_the_nmea_reader_from_the_extension(tmp_path):
     assert track.source.format == "nmea" and len(track) == 1
     assert track.time_s[0] == utc(1994, 3, 23, 12, 35, 19)
     assert track.height_m[0] == pytest.approx(592.3)
+
+
+# --- course over ground ------------------------------------------------------------------------
+# Field layouts: NMEA 0183 v4.10, RMC/VTG field layout, common practice. RMC field 8 is the true
+# course over ground in degrees; VTG field 1 is the true course, field 3 the magnetic one.
+
+
+def test_widely_reproduced_rmc_example_gives_the_true_course():
+    track = read_nmea("a.nmea", log(RMC_EXAMPLE))
+    assert track.course_deg[0] == 84.4  # "084.4" in the example sentence, degrees true
+
+
+def test_vtg_true_course_is_used_when_rmc_has_none_and_the_magnetic_one_is_not():
+    track = read_nmea(
+        "a.nmea",
+        log(
+            sentence("GPRMC,120000,A,4807.038,N,01131.000,E,,,230394,,,A"),
+            sentence("GPVTG,054.7,T,034.4,M,005.5,N,010.2,K,A"),
+        ),
+    )
+    assert track.course_deg[0] == 54.7  # true course (T), not the magnetic 34.4 (M)
+    assert track.speed_mps[0] == pytest.approx(10.2 / 3.6, rel=1e-12)
+
+
+def test_rmc_course_wins_over_vtg_in_the_same_epoch():
+    track = read_nmea(
+        "a.nmea",
+        log(
+            sentence("GPRMC,120000,A,4807.038,N,01131.000,E,5.0,270.0,230394,,,A"),
+            sentence("GPVTG,054.7,T,034.4,M,005.5,N,010.2,K,A"),
+        ),
+    )
+    assert track.course_deg[0] == 270.0 and track.speed_mps[0] == pytest.approx(5.0 * KNOT_MPS)
+
+
+def test_empty_course_while_standing_still_is_nan():
+    # Receivers leave the course empty when not moving (common practice).
+    track = read_nmea(
+        "a.nmea",
+        log(
+            sentence("GPRMC,120000,A,4807.038,N,01131.000,E,0.0,,230394,,,A"),
+            sentence("GPRMC,120001,A,4807.038,N,01131.000,E,1.0,12.5,230394,,,A"),
+        ),
+    )
+    assert np.isnan(track.course_deg[0]) and track.course_deg[1] == 12.5
+
+
+def test_a_log_without_any_course_has_no_course_array():
+    track = read_nmea("a.nmea", log(sentence("GPGGA,120000,4807.038,N,01131.000,E,1,08,0.9,545.4,M,46.9,M,,")))
+    assert track.course_deg is None
+
+
+def test_course_of_360_degrees_reads_as_north():
+    track = read_nmea("a.nmea", log(sentence("GPRMC,120000,A,4807.038,N,01131.000,E,3.0,360.0,230394,,,A")))
+    assert track.course_deg[0] == 0.0
+
+
+@pytest.mark.parametrize("cog", ["361.0", "-5.0", "abc"])
+def test_course_out_of_range_makes_the_sentence_malformed(cog):
+    good = sentence("GPGGA,120001,4807.038,N,01131.000,E,1,08,0.9,545.4,M,46.9,M,,")
+    bad = sentence(f"GPRMC,120000,A,4807.038,N,01131.000,E,3.0,{cog},230394,,,A")
+    track = read_nmea("a.nmea", log(bad, good))
+    assert len(track) == 1 and track.source.skipped == {"malformed": 1}
+
+
+def test_speed_and_course_survive_a_round_trip_through_logwrite(tmp_path):
+    from survey.logwrite import nmea_text, write_text
+    from survey.track import make_track
+
+    t0 = utc(2026, 5, 4, 9, 30, 0)
+    course = np.array([0.0, 45.25, 181.5, 359.75])
+    speed = np.array([0.0, 3.5, 12.25, 20.0])
+    src = make_track("x", "csv", t0 + np.arange(4.0), [46.1, 46.1001, 46.1002, 46.1003], [7.9] * 4,
+                     [500.0] * 4, height_ref=HEIGHT_ELLIPSOID, speed_mps=speed, course_deg=course)
+    path = tmp_path / "r.nmea"
+    write_text(str(path), nmea_text(src))
+    back = read_log(str(path))
+    np.testing.assert_allclose(back.course_deg, course, atol=0.005)  # written with 2 decimals
+    # knots written with 3 decimals: 0.0005 kn = 0.00026 m/s
+    np.testing.assert_allclose(back.speed_mps, speed, atol=3e-4)

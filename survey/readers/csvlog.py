@@ -14,6 +14,9 @@ height      alt, altitude, ele, elevation, height, h, plus hae / ellipsoidal_hei
             (ellipsoid) and alt_msl / orthometric_height / amsl (msl)
 speed       speed, spd, sog, velocity, ground_speed; unit from the name: m/s (default),
             km/h (kmh, kph), knots (kn, kts), mph
+course      course, course_deg, cog, course_over_ground, heading_deg, track_deg, bearing (true
+            course over ground, degrees clockwise from north; a bare ``heading`` or ``track`` is
+            not taken: it may be the body heading or a track number)
 accuracy    accuracy, acc, hacc, h_acc, horizontal_accuracy, eph (metres)
 hdop        hdop
 satellites  sats, satellites, sat, num_sats, nsat, numsv, satellites_used
@@ -56,7 +59,7 @@ from .nmea import KMH_MPS, KNOT_MPS, SECONDS_PER_DAY, day_rollover
 #: One international mile (1609.344 m, exact by definition) per hour, in m/s.
 MPH_MPS = 1609.344 / 3600.0
 
-ROLES = ("time", "date", "lat", "lon", "height", "speed", "accuracy", "hdop", "satellites")
+ROLES = ("time", "date", "lat", "lon", "height", "speed", "course", "accuracy", "hdop", "satellites")
 
 _NAMES: dict[str, set[str]] = {
     "time": {
@@ -84,6 +87,8 @@ _NAMES: dict[str, set[str]] = {
     "lon": {"lon", "lng", "long", "longitude", "gps_lon", "gps_lng", "gps_longitude"},
     "height": {"alt", "altitude", "ele", "elev", "elevation", "height", "h", "gps_alt", "z"},
     "speed": {"speed", "spd", "sog", "velocity", "ground_speed", "gps_speed", "speed_over_ground"},
+    "course": {"course", "course_deg", "cog", "course_over_ground", "heading_deg", "track_deg", "bearing",
+               "gps_course", "true_course", "course_true"},
     "accuracy": {
         "accuracy",
         "acc",
@@ -171,7 +176,8 @@ def read_csv(
     -------
     Track
         ``time_s`` in s since 1970-01-01 UTC (NaN without a time column), WGS 84 degrees, heights
-        in m, ``speed_mps`` in m/s, ``accuracy_m`` in m, plus ``hdop`` and ``satellites``.
+        in m, ``speed_mps`` in m/s, ``course_deg`` (degrees clockwise from true north),
+        ``accuracy_m`` in m, plus ``hdop`` and ``satellites``.
 
     Raises
     ------
@@ -243,6 +249,14 @@ def read_csv(
         factor, unit = _speed_factor(header[mapping["speed"]])
         optional["speed_mps"] = numbers("speed", "speed") * factor
         notes.append(f"speed column read as {unit}")
+    if "course" in mapping:
+        course = numbers("course", "course")
+        bad = ~((course >= 0.0) & (course <= 360.0)) & np.isfinite(course)
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise InputError(path, f"course {course[i]:g} is out of range (must be within 0-360 deg)",
+                             f"line {line_no[i]}")
+        optional["course_deg"] = np.where(course == 360.0, 0.0, course)
     if "accuracy" in mapping:
         optional["accuracy_m"] = numbers("accuracy", "accuracy")
     if "hdop" in mapping:
@@ -344,7 +358,7 @@ def _role_of(name: str) -> str | None:
     if not tokens:
         return None
     full = "_".join(tokens)
-    for role in ("time", "date", "lat", "lon", "height", "speed", "accuracy", "hdop", "satellites"):
+    for role in ROLES:
         if full in _NAMES[role]:
             return role
     if _height_ref_from_name(name):

@@ -4,9 +4,17 @@ Sentences used
 --------------
 * ``GGA``: time of day, position, fix quality, satellites, HDOP, altitude above mean sea level and
   geoid separation.
-* ``RMC``: time of day, status, position, speed over ground (knots) and the date (ddmmyy).
+* ``RMC``: time of day, status, position, speed over ground (knots), true course over ground
+  (degrees) and the date (ddmmyy).
 * ``GNS``: time of day, position, per-constellation mode, satellites, HDOP, altitude, separation.
-* ``VTG``: speed over ground; it carries no time and joins the epoch of the sentence before it.
+* ``VTG``: true course and speed over ground; it carries no time and joins the epoch of the
+  sentence before it.
+
+Field layouts (NMEA 0183 v4.10, common practice): ``RMC,hhmmss.ss,A,llll.ll,a,yyyyy.yy,a,x.x
+(speed, knots),x.x (course, degrees true),ddmmyy,x.x,a,m``; ``VTG,x.x (course true),T,x.x
+(course magnetic),M,x.x (knots),N,x.x (km/h),K,m``. Course is read only as the true course
+(the magnetic one needs the local variation); ``course_deg`` is degrees clockwise from true
+north in [0, 360) and NaN where absent (receivers leave it empty when not moving).
 
 Any talker id is accepted (``GP``, ``GN``, ``GL``, ``GA``, ``GB``, ...). Other sentence types and
 proprietary ``$P...`` sentences are ignored and listed in ``SourceInfo.notes``.
@@ -20,7 +28,9 @@ Decisions (documented here because a log does not say)
   rest of the file has checksums, a sentence without one is almost always a line cut short (power
   loss, full card) and is skipped as ``"no checksum"``.
 * One fix per epoch: consecutive sentences with the same time of day are merged. Position comes
-  from GGA, else GNS, else RMC; speed from RMC, else VTG; date from RMC.
+  from GGA, else GNS, else RMC; speed and course from RMC, else VTG; date from RMC.
+* A course outside 0-360 degrees (or a negative speed) makes the sentence malformed; 360 is read
+  as 0.
 * Each sentence is judged on its own. Invalid fixes are dropped and counted: GGA quality 0
   (``"invalid fix (GGA quality 0)"``), RMC status ``V`` or mode ``N``
   (``"void fix (RMC status V)"``), GNS with every mode ``N`` (``"invalid fix (GNS mode N)"``);
@@ -97,6 +107,8 @@ class _Epoch:
     hdop: float = math.nan
     speed_rmc: float = math.nan
     speed_vtg: float = math.nan
+    course_rmc: float = math.nan
+    course_vtg: float = math.nan
 
 
 @dataclass
@@ -128,7 +140,8 @@ def read_nmea(path: str, data: bytes) -> Track:
     -------
     Track
         One fix per valid epoch; ``time_s`` in s since 1970-01-01 UTC, WGS 84 degrees, heights in m
-        (``"ellipsoid"`` or ``"msl"``, see module notes), ``speed_mps`` in m/s, and the GGA
+        (``"ellipsoid"`` or ``"msl"``, see module notes), ``speed_mps`` in m/s, ``course_deg`` (true
+        course over ground, degrees clockwise from north), and the GGA
         ``fix_quality``, ``satellites`` and ``hdop``.
 
     Raises
@@ -175,11 +188,13 @@ def read_nmea(path: str, data: bytes) -> Track:
         notes.append(height_note)
 
     speed = np.array([e.speed_rmc if math.isfinite(e.speed_rmc) else e.speed_vtg for e in epochs])
+    course = np.array([e.course_rmc if math.isfinite(e.course_rmc) else e.course_vtg for e in epochs])
     optional = {
         "fix_quality": np.array([e.quality for e in epochs]),
         "satellites": np.array([e.sats for e in epochs]),
         "hdop": np.array([e.hdop for e in epochs]),
         "speed_mps": speed,
+        "course_deg": course,
     }
     optional = {k: v for k, v in optional.items() if np.isfinite(v).any()}
     return make_track(
@@ -318,9 +333,12 @@ def _assemble(
         f = text.split(",")
         try:
             if kind == b"VTG":
-                speed = _vtg_speed(f)
-                if current is not None and math.isfinite(speed):
-                    current.speed_vtg = speed
+                speed, course = _vtg(f)
+                if current is not None:
+                    if math.isfinite(speed):
+                        current.speed_vtg = speed
+                    if math.isfinite(course):
+                        current.course_vtg = course
                 continue
             tod = _time_of_day(f[1] if len(f) > 1 else "")
             if current is None or tod != current.tod_s:
@@ -381,12 +399,16 @@ def _rmc(f: list[str], ep: _Epoch) -> str | None:
         return SKIP_RMC_VOID
     lat, lon = _position(f[3], f[4], f[5], f[6])
     day = _date_days(f[9])
-    _set_position(ep, lat, lon, 1)
     knots = _float_field(f[7])
+    if knots < 0:
+        raise _Malformed
+    course = _course_field(f[8])
+    # every field decoded: only now does the sentence touch the epoch
+    _set_position(ep, lat, lon, 1)
     if math.isfinite(knots):
-        if knots < 0:
-            raise _Malformed
         ep.speed_rmc = knots * KNOT_MPS
+    if math.isfinite(course):
+        ep.course_rmc = course
     ep.day = day
     return None
 
@@ -416,20 +438,32 @@ def _gns(f: list[str], ep: _Epoch) -> str | None:
 _DECODERS = {b"GGA": _gga, b"RMC": _rmc, b"GNS": _gns}
 
 
-def _vtg_speed(f: list[str]) -> float:
-    """VTG speed over ground in m/s (km/h field, else knots); NaN if absent or mode ``N``."""
+def _vtg(f: list[str]) -> tuple[float, float]:
+    """VTG speed over ground in m/s (km/h field, else knots) and true course in degrees; NaN if
+    absent or mode ``N``."""
     if len(f) < 9:
         raise _Malformed
     mode = f[9] if len(f) > 9 else ""
     if mode[:1] == "N":
-        return math.nan
+        return math.nan, math.nan
+    course = _course_field(f[1])
     kmh = _float_field(f[7])
     if math.isfinite(kmh) and kmh >= 0:
-        return kmh * KMH_MPS
+        return kmh * KMH_MPS, course
     knots = _float_field(f[5])
     if math.isfinite(knots) and knots >= 0:
-        return knots * KNOT_MPS
-    return math.nan
+        return knots * KNOT_MPS, course
+    return math.nan, course
+
+
+def _course_field(s: str) -> float:
+    """True course over ground, degrees clockwise from north in [0, 360); NaN when empty."""
+    v = _float_field(s)
+    if math.isnan(v):
+        return v
+    if not 0.0 <= v <= 360.0:
+        raise _Malformed
+    return 0.0 if v == 360.0 else v
 
 
 def _set_position(ep: _Epoch, lat: float, lon: float, rank: int) -> None:
