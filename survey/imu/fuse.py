@@ -32,7 +32,7 @@ from numpy.typing import NDArray
 from scipy.ndimage import gaussian_filter1d
 
 from ..errors import InputError
-from .eskf import GRAVITY, NX, run_filter
+from .eskf import GRAVITY, NX, Wander, run_filter
 from .preint import make_substeps, preintegrate, so3_exp, so3_log
 from .reader import (MIN_FULL_SCALE_ACCEL_MPS2, MIN_FULL_SCALE_GYRO_RADPS, STANDARD_GRAVITY_MPS2, ImuLog,
                      check_imu, saturation_mask)
@@ -54,6 +54,28 @@ DEFAULTS = {
     "saturation_noise_factor": 100.0,
     "max_offset_s": 2.0,
     "decorrelation_s": 1.0,
+    # GNSS velocity updates (speed and course over ground). 1-sigma per horizontal axis of a
+    # phone's Doppler velocity: 0.1-0.2 m/s class (from memory; no published figure to hand).
+    "velocity_sigma_mps": 0.15,
+    # Below this reported speed the course is not used (receivers freeze or scatter it); the
+    # velocity update then only says "about this slow": v_h = 0 with per-axis variance
+    # velocity_sigma^2 + speed^2 (common practice: speed-only use at low speed).
+    "course_min_speed_mps": 1.0,
+    # Receiver wander as Gauss-Markov filter states. None = automatic: phone-like logs (no stated
+    # accuracy, or a median stated accuracy above phone_accuracy_m) WITH GNSS velocities take the
+    # phone grade of survey.synthetic.GNSS_GRADES (3 m, 60 s; split of white and wander: common
+    # practice), capped so that the white part keeps half the stated total; every other log a
+    # small wander of small_wander_fraction x the stated accuracy (without velocities the wander
+    # cannot be told from the path, and modelling it only softens the fixes).
+    "wander_sigma_m": None,
+    "wander_tau_s": 60.0,
+    "phone_accuracy_m": 1.0,
+    "phone_wander_sigma_m": 3.0,
+    "small_wander_fraction": 0.1,
+    # Zero-velocity updates where the IMU says still (Groves 2013 ch. 15) and the predicted speed
+    # is below zupt_max_speed_mps; 1-sigma of the pseudo-measurement.
+    "zupt_sigma_mps": 0.02,
+    "zupt_max_speed_mps": 0.5,
 }
 
 
@@ -95,13 +117,20 @@ class FusedPath:
     epoch_time_s, accel_bias_mps2, gyro_bias_radps, bias_sd
         Smoothed biases at the filter epochs ((N, 3) each; ``bias_sd`` (N, 6)).
     epoch_cov
-        (N, 15, 15) smoothed error-state covariance at the epochs (order dp, dv, dtheta, dba, dbg).
+        (N, 18, 18) smoothed error-state covariance at the epochs (order dp, dv, dtheta, dba, dbg,
+        db: receiver wander).
     time_offset_s
         Offset added to the IMU times (given or estimated), s.
     fixes_used, fixes_rejected
         Counts of GNSS fixes the filter took / refused at the gate.
     settings, messages
         Run settings (for the profile header) and lines worth showing the user.
+    gnss_wander_m
+        (N, 3) smoothed receiver wander (slow GNSS position error, east, north, up) at the epochs.
+    epoch_zupt
+        (N,) zero-velocity update applied at the epoch (static start and stops).
+    stops
+        ``(start_s, end_s)`` of the stops after the start that zero-velocity updates held.
     """
 
     time_s: FloatArray
@@ -131,6 +160,9 @@ class FusedPath:
     fixes_rejected: int
     settings: dict = field(default_factory=dict)
     messages: tuple[str, ...] = ()
+    gnss_wander_m: FloatArray | None = None
+    epoch_zupt: NDArray[np.bool_] | None = None
+    stops: tuple[tuple[float, float], ...] = ()
 
     def __len__(self) -> int:
         return len(self.time_s)
@@ -244,14 +276,28 @@ def _static_prefix(t: FloatArray, acc: FloatArray, gyr: FloatArray, spec: MemsSp
 
 
 def align(imu: ImuLog, t_g: FloatArray, enu_g: FloatArray, var_h: FloatArray, spec: MemsSpec,
-          vertical_factor: float) -> tuple[tuple, FloatArray, float, list[str]]:
-    """Initial state, covariance, end of the static start (time, s) and messages."""
+          vertical_factor: float, vel_en: FloatArray | None = None, vel_sd_mps: float = 0.15,
+          wander_m: FloatArray | None = None) -> tuple[tuple, FloatArray, float, list[str]]:
+    """Initial state, covariance, end of the static start (time, s) and messages.
+
+    Static start (IMU still for >= 1 s): level from the mean specific force, gyro bias from the
+    mean rate, heading from the course between the start and the first fix max(20 m, 10 sigma)
+    away. Moving start: with GNSS velocities (``vel_en``, (n, 2) east/north m/s, NaN where not
+    usable) the first velocity gives v0 and the heading (course over ground, no sideslip), and the
+    acceleration fitted to the first 3 s of velocities corrects the level: the accelerometer
+    measures f = a - g, not -g, so the attitude is the rotation that takes the mean body specific
+    force onto a - g and body x onto the course (a two-vector attitude fit, Wahba's problem,
+    scipy ``Rotation.align_vectors``). Without velocities the level comes from the first second
+    (wrong by a/g) and the heading from the displacement.
+    ``var_h`` is the white position variance, ``wander_m`` the receiver wander 1-sigma per axis.
+    """
     msgs: list[str] = []
     t0 = t_g[0]
     sel = imu.time_s >= t0
     ti, fa, fg = imu.time_s[sel], imu.accel_mps2[sel], imu.gyro_radps[sel]
     static_s = _static_prefix(ti, fa, fg, spec)
-    sig_h = float(np.sqrt(np.median(var_h)))
+    wander = np.zeros(3) if wander_m is None else np.asarray(wander_m, float)
+    sig_h = float(np.sqrt(np.median(var_h) + wander[0] ** 2))
     # GNSS: where does the mover leave its start?
     d0 = np.hypot(enu_g[:, 0] - enu_g[0, 0], enu_g[:, 1] - enu_g[0, 1])
     thr = max(5.0, 4.0 * sig_h)
@@ -261,6 +307,8 @@ def align(imu: ImuLog, t_g: FloatArray, enu_g: FloatArray, var_h: FloatArray, sp
     t_move = t_g[moved[0]]
     static_s = min(static_s, max(t_move - t0, 0.0))
     static = static_s >= 1.0
+    has_vel = vel_en is not None and np.isfinite(vel_en[0]).all()
+    R0 = None
     if static:
         w = ti < t0 + static_s
         f_mean = fa[w].mean(axis=0)
@@ -270,6 +318,26 @@ def align(imu: ImuLog, t_g: FloatArray, enu_g: FloatArray, var_h: FloatArray, sp
         p0 = np.nanmean(enu_g[start], axis=0) if start.any() else enu_g[0]
         v0, v_sd = np.zeros(3), 0.05
         msgs.append(f"alignment: static start of {static_s:.1f} s (level from gravity, gyro bias from the mean rate)")
+    elif has_vel:
+        win = 3.0
+        use = (t_g <= t0 + win) & np.isfinite(vel_en).all(axis=1)
+        tt = t_g[use] - t0
+        a_h = np.polyfit(tt, vel_en[use], 1)[0] if use.sum() >= 3 else np.zeros(2)
+        w = ti < t0 + (tt[-1] if use.sum() >= 3 else 1.0)
+        f_mean = fa[w].mean(axis=0)
+        bg0 = np.zeros(3)
+        bg_sd = np.full(3, spec.gyro_offset_radps / np.sqrt(3.0))
+        p0 = enu_g[0]
+        v0 = np.array([vel_en[0, 0], vel_en[0, 1], 0.0])
+        v_sd = 2.0 * vel_sd_mps
+        f_loc = np.array([a_h[0], a_h[1], 0.0]) - GRAVITY
+        x_loc = v0 / np.linalg.norm(v0)
+        from scipy.spatial.transform import Rotation
+
+        rot, _ = Rotation.align_vectors([f_loc, x_loc], [f_mean, [1.0, 0.0, 0.0]], weights=[100.0, 1.0])
+        R0 = rot.as_matrix()
+        msgs.append("alignment: moving start; level from the specific force less the GNSS acceleration, "
+                    "heading from the GNSS course")
     else:
         w = ti < t0 + 1.0
         f_mean = fa[w].mean(axis=0)
@@ -278,31 +346,41 @@ def align(imu: ImuLog, t_g: FloatArray, enu_g: FloatArray, var_h: FloatArray, sp
         p0 = enu_g[0]
         v0, v_sd = None, 3.0
         msgs.append("alignment: no static start; level from the first second (moving), gyro bias estimated on the way")
-    up_b = f_mean / np.linalg.norm(f_mean)
-    pitch = float(np.arcsin(np.clip(up_b[0], -1, 1)))
-    bank = float(np.arctan2(-up_b[1], up_b[2]))
-    # heading: course from the start to the first fix max(20 m, 10 sigma) away
-    far = np.flatnonzero(d0 > max(20.0, 10.0 * sig_h))
-    j = far[0] if len(far) else moved[0]
-    base = p0 if static else enu_g[0]
-    dvec = enu_g[j] - base
-    yaw = float(np.arctan2(dvec[1], dvec[0]))
-    yaw_sd = float(np.arctan2(2.0 * sig_h, np.hypot(dvec[0], dvec[1]))) + np.radians(2.0)
-    if v0 is None:
-        v0 = np.nan_to_num(dvec / max(t_g[j] - t_g[0], 1e-3))
-    R0 = attitude_from_euler(yaw, pitch, bank)
+    if R0 is None:
+        up_b = f_mean / np.linalg.norm(f_mean)
+        pitch = float(np.arcsin(np.clip(up_b[0], -1, 1)))
+        bank = float(np.arctan2(-up_b[1], up_b[2]))
+        # heading: course from the start to the first fix max(20 m, 10 sigma) away
+        far = np.flatnonzero(d0 > max(20.0, 10.0 * sig_h))
+        j = far[0] if len(far) else moved[0]
+        base = p0 if static else enu_g[0]
+        dvec = enu_g[j] - base
+        yaw = float(np.arctan2(dvec[1], dvec[0]))
+        yaw_sd = float(np.arctan2(2.0 * sig_h, np.hypot(dvec[0], dvec[1]))) + np.radians(2.0)
+        if v0 is None:
+            v0 = np.nan_to_num(dvec / max(t_g[j] - t_g[0], 1e-3))
+        R0 = attitude_from_euler(yaw, pitch, bank)
+        tilt_extra = 0.0 if static else np.radians(3.0)
+    else:
+        yaw_sd = float(np.arctan2(vel_sd_mps, np.linalg.norm(v0))) + np.radians(2.0)  # + sideslip allowance
+        tilt_extra = (0.1 + 2.0 * vel_sd_mps / 3.0) / STANDARD_GRAVITY_MPS2  # fitted-acceleration error, rad
     ba0 = np.array([0.0, 0.0, np.linalg.norm(f_mean) - STANDARD_GRAVITY_MPS2]) if static else np.zeros(3)
     ba_sd = spec.accel_offset_mps2 / np.sqrt(3.0)
-    tilt_sd = ba_sd / STANDARD_GRAVITY_MPS2 + (0.0 if static else np.radians(3.0))
-    P0 = np.zeros((NX, NX))
+    tilt_sd = ba_sd / STANDARD_GRAVITY_MPS2 + tilt_extra
+    sig_w = np.sqrt(np.median(var_h))
     sd = np.concatenate((
-        [sig_h, sig_h, vertical_factor * sig_h], np.full(3, v_sd), [tilt_sd, tilt_sd, yaw_sd],
-        np.full(3, ba_sd), bg_sd,
+        [sig_w, sig_w, vertical_factor * sig_w], np.full(3, v_sd), [tilt_sd, tilt_sd, yaw_sd],
+        np.full(3, ba_sd), bg_sd, np.zeros(3),
     ))
-    np.fill_diagonal(P0, sd**2)
+    P0 = np.diag(sd**2)
+    # the start position is a fix, p0 = p + b + e: its error is -(b + e), so dp and db anticorrelate
+    wv = wander**2
+    P0[0:3, 0:3] += np.diag(wv)
+    P0[15:18, 15:18] = np.diag(wv)
+    P0[0:3, 15:18] = P0[15:18, 0:3] = -np.diag(wv)
     if not np.isfinite(p0[2]):
         p0 = np.array([p0[0], p0[1], 0.0])
-    x0 = (np.asarray(p0, float), np.asarray(v0, float), R0, ba0, np.asarray(bg0, float))
+    x0 = (np.asarray(p0, float), np.asarray(v0, float), R0, ba0, np.asarray(bg0, float), np.zeros(3))
     return x0, P0, (t0 + static_s) if static else t0, msgs
 
 
@@ -326,6 +404,8 @@ def fuse(
     imu: ImuLog,
     spec: MemsSpec = MPU9250,
     time_offset_s: float | None = None,
+    speed_mps: FloatArray | None = None,
+    course_deg: FloatArray | None = None,
     **settings,
 ) -> FusedPath:
     """Fuse GNSS fixes and an IMU log into one smoothed path (see module docstring).
@@ -346,6 +426,11 @@ def fuse(
     time_offset_s
         GNSS-IMU offset added to the IMU times; None = estimate it (``timing``) and apply it when
         it is significant.
+    speed_mps, course_deg
+        (n,) receiver speed over ground, m/s, and true course over ground, degrees clockwise from
+        north (``Track.speed_mps``, ``Track.course_deg``; NaN where absent). Where both are
+        present the filter takes a horizontal velocity update east = v sin(course),
+        north = v cos(course) (``velocity_sigma_mps``; speed only below ``course_min_speed_mps``).
     settings
         Overrides of ``DEFAULTS``.
     """
@@ -358,14 +443,16 @@ def fuse(
     n = len(t)
     sig = np.full(n, np.nan) if sigma_h_m is None else np.asarray(sigma_h_m, float)
     msgs: list[str] = []
+    stated = bool(np.isfinite(sig).any())
     if np.isnan(sig).any():
         if np.isnan(sig).all():
             msgs.append(f"GNSS log has no accuracy: {cfg['default_sigma_h_m']:g} m (1-sigma) assumed")
         sig = np.where(np.isfinite(sig) & (sig > 0), sig, cfg["default_sigma_h_m"])
+    vel = gnss_velocity_en(n, speed_mps, course_deg)
     check = check_imu(imu, t)
     msgs.extend(check.messages)
     if time_offset_s is not None:
-        return _fuse_once(t, enu, sig, imu.shifted(float(time_offset_s)) if time_offset_s else imu, spec, cfg,
+        return _fuse_once(t, enu, sig, stated, vel, imu.shifted(float(time_offset_s)) if time_offset_s else imu, spec, cfg,
                           msgs, float(time_offset_s), "given", check.rate_hz)
     from .timing import estimate_time_offset
 
@@ -373,10 +460,67 @@ def fuse(
     msgs.append(est.message)
     offset = est.offset_s if est.significant else 0.0
     note = "estimated" if est.significant else "estimated, not significant: 0 used"
-    return _fuse_once(t, enu, sig, imu.shifted(offset) if offset else imu, spec, cfg, msgs, offset, note, check.rate_hz)
+    return _fuse_once(t, enu, sig, stated, vel, imu.shifted(offset) if offset else imu, spec, cfg, msgs, offset, note,
+                      check.rate_hz)
 
 
-def _fuse_once(t, enu, sig, imu: ImuLog, spec: MemsSpec, cfg: dict, msgs: list[str], offset: float,
+def gnss_velocity_en(n: int, speed_mps: FloatArray | None, course_deg: FloatArray | None) -> FloatArray:
+    """(n, 3) receiver horizontal velocity east, north (m/s) and the reported speed, from speed
+    and true course over ground (east = v sin(course), north = v cos(course)); NaN east/north
+    where the course is missing, all NaN where the speed is."""
+    out = np.full((n, 3), np.nan)
+    if speed_mps is None:
+        return out
+    v = np.asarray(speed_mps, float)
+    out[:, 2] = np.where(v >= 0, v, np.nan)
+    if course_deg is not None:
+        c = np.radians(np.asarray(course_deg, float))
+        out[:, 0] = v * np.sin(c)
+        out[:, 1] = v * np.cos(c)
+    return out
+
+
+def wander_model(sig: FloatArray, stated: bool, has_velocity: bool, cfg: dict) -> tuple[FloatArray, FloatArray, str]:
+    """Receiver wander 1-sigma per axis (east, north, up), white horizontal 1-sigma per fix, and a
+    description. The stated (or assumed) accuracy is taken as the total sqrt(white^2 + wander^2);
+    the white part keeps at least half of it."""
+    med = float(np.median(sig))
+    if cfg["wander_sigma_m"] is not None:
+        w, how = float(cfg["wander_sigma_m"]), "given"
+    elif has_velocity and (not stated or med > cfg["phone_accuracy_m"]):
+        w, how = min(float(cfg["phone_wander_sigma_m"]), np.sqrt(0.75) * med), "phone-like log with velocities"
+    else:
+        w, how = max(cfg["small_wander_fraction"] * med, 1e-3), "small (log states sub-metre accuracy)"
+    w = max(w, 1e-3)  # a strictly positive variance keeps the smoother's covariances invertible
+    white = np.sqrt(np.maximum(sig**2 - w**2, 0.25 * sig**2))
+    return np.array([w, w, cfg["vertical_factor"] * w]), white, f"{w:.3g} m, {cfg['wander_tau_s']:g} s ({how})"
+
+
+def still_epochs(imu: ImuLog, epochs: FloatArray, spec: MemsSpec, half_window_s: float = 0.5) -> NDArray[np.bool_]:
+    """(N,) True where the IMU looks still within +-``half_window_s`` of the epoch: per-axis
+    scatter of accelerometer and gyro within 4x their white noise (the test of the static start,
+    ``_static_prefix``), computed for all epochs at once from cumulative sums."""
+    t = imu.time_s
+    rate = 1.0 / float(np.median(np.diff(t)))
+    lo = np.searchsorted(t, epochs - half_window_s)
+    hi = np.searchsorted(t, epochs + half_window_s)
+    cnt = (hi - lo).astype(float)
+    ok = cnt >= 5
+    out = np.zeros(len(epochs), bool)
+    for x, lim in ((imu.accel_mps2, 4.0 * max(spec.accel_noise_mps2_rthz * np.sqrt(rate), 1e-3)),
+                   (imu.gyro_radps, 4.0 * max(spec.gyro_noise_radps_rthz * np.sqrt(rate), 1e-4))):
+        xc = x - x.mean(axis=0)
+        c1 = np.vstack((np.zeros(3), np.cumsum(xc, axis=0)))
+        c2 = np.vstack((np.zeros(3), np.cumsum(xc**2, axis=0)))
+        n = np.maximum(cnt, 1.0)[:, None]
+        m = (c1[hi] - c1[lo]) / n
+        var = (c2[hi] - c2[lo]) / n - m**2
+        out_x = (var < lim**2).all(axis=1)
+        out = out_x if x is imu.accel_mps2 else out & out_x
+    return out & ok
+
+
+def _fuse_once(t, enu, sig, stated, vel, imu: ImuLog, spec: MemsSpec, cfg: dict, msgs: list[str], offset: float,
                offset_note: str, imu_rate_hz: float) -> FusedPath:
     """One fusion with the IMU already on the GNSS clock."""
     msgs = list(msgs)
@@ -385,8 +529,10 @@ def _fuse_once(t, enu, sig, imu: ImuLog, spec: MemsSpec, cfg: dict, msgs: list[s
         raise InputError(imu.path, "fewer than 3 GNSS fixes fall inside the IMU log's time span")
     if (~keep).any():
         msgs.append(f"{int((~keep).sum())} GNSS fixes outside the IMU span (or without position) left out")
-    t, enu, sig = t[keep], enu[keep], sig[keep]
-    var = np.column_stack((sig**2, sig**2, (cfg["vertical_factor"] * sig) ** 2))
+    t, enu, sig, vel = t[keep], enu[keep], sig[keep], vel[keep]
+    has_vel = bool((np.isfinite(vel[:, 2]) & (vel[:, 2] >= cfg["course_min_speed_mps"]) & np.isfinite(vel[:, 0])).any())
+    wander_sd, white, wander_note = wander_model(sig, stated, has_vel, cfg)
+    var = np.column_stack((white**2, white**2, (cfg["vertical_factor"] * white) ** 2))
     # Receiver errors are correlated over seconds or more: fixes faster than ``decorrelation_s``
     # are de-weighted so that they carry no more information per second than fixes that far
     # apart (common practice; otherwise the filter grows overconfident and gates good fixes).
@@ -399,10 +545,27 @@ def _fuse_once(t, enu, sig, imu: ImuLog, spec: MemsSpec, cfg: dict, msgs: list[s
     r = np.full((N, 3), np.nan)
     z[fix_at] = enu
     r[fix_at] = var
-    x0, P0, static_end, amsgs = align(imu, t, enu, var[:, 0], spec, cfg["vertical_factor"])
+    # GNSS velocity: full horizontal velocity where the course is meaningful, "about this slow"
+    # (v_h = 0, variance sigma^2 + speed^2) where the speed is below course_min_speed_mps
+    sv = cfg["velocity_sigma_mps"]
+    spd = vel[:, 2]
+    moving = np.isfinite(vel[:, :2]).all(axis=1) & (spd >= cfg["course_min_speed_mps"])
+    slow = np.isfinite(spd) & (spd < cfg["course_min_speed_mps"])
+    zv = np.full((N, 2), np.nan)
+    rv = np.full(N, np.nan)
+    zv[fix_at[moving]] = vel[moving, :2]
+    rv[fix_at[moving]] = sv**2
+    zv[fix_at[slow]] = 0.0
+    rv[fix_at[slow]] = sv**2 + spd[slow] ** 2
+    n_vel = int((moving | slow).sum())
+    vel_for_align = np.where(moving[:, None], vel[:, :2], np.nan)
+    x0, P0, static_end, amsgs = align(imu, t, enu, var[:, 0], spec, cfg["vertical_factor"],
+                                      vel_en=vel_for_align if n_vel else None, vel_sd_mps=sv, wander_m=wander_sd)
     msgs.extend(amsgs)
     zupt = epochs <= static_end
     zupt[0] = zupt[0] and static_end > epochs[0]
+    still = still_epochs(imu, epochs, spec)
+    wander = Wander(wander_sd, float(cfg["wander_tau_s"]))
     sat = (saturation_mask(imu.accel_mps2, min_full_scale=MIN_FULL_SCALE_ACCEL_MPS2)
            | saturation_mask(imu.gyro_radps, min_full_scale=MIN_FULL_SCALE_GYRO_RADPS))
     scale = np.where(sat, cfg["saturation_noise_factor"], 1.0)
@@ -413,12 +576,20 @@ def _fuse_once(t, enu, sig, imu: ImuLog, spec: MemsSpec, cfg: dict, msgs: list[s
     bg_lin = np.broadcast_to(x0[4], (N - 1, 3)).copy()
     for it in range(int(cfg["iterations"])):
         pre = preintegrate(steps, ba_lin, bg_lin, gpsd, apsd)
-        run = run_filter(x0, P0, pre, z, r, zupt, q_ba, q_bg, gate_prob=cfg["gate_prob"])
+        run = run_filter(x0, P0, pre, z, r, zupt, q_ba, q_bg, wander, gate_prob=cfg["gate_prob"],
+                         zupt_sigma_mps=cfg["zupt_sigma_mps"], z_vel=zv if n_vel else None, r_vel=rv,
+                         still=still, zupt_max_speed_mps=cfg["zupt_max_speed_mps"])
         xs, Ps = rts_smooth(run)
         ba_lin, bg_lin = xs.ba[:-1].copy(), xs.bg[:-1].copy()
     rejected = int(run.rejected.sum())
     if rejected:
         msgs.append(f"{rejected} GNSS fixes refused by the innovation gate")
+    vel_used, vel_rejected = int(run.vel_accepted.sum()), int(run.vel_rejected.sum())
+    if n_vel:
+        msgs.append(f"GNSS velocity updates: {vel_used} used, {vel_rejected} refused by the gate")
+    stops = [ab for ab in _runs(epochs, run.zupt) if ab[0] > epochs[0]]  # not the static start
+    if stops:
+        msgs.append(f"{len(stops)} stops held by zero-velocity updates ({sum(b - a for a, b in stops):.0f} s)")
     path = _dense(steps, epochs, xs, Ps, imu, spec, cfg)
     used_t = epochs[run.accepted]
     outages = _outages(used_t, cfg["outage_factor"])
@@ -429,7 +600,11 @@ def _fuse_once(t, enu, sig, imu: ImuLog, spec: MemsSpec, cfg: dict, msgs: list[s
         msgs.append(f"{len(outages)} GNSS outages bridged by the IMU (longest {max(b - a for a, b in outages):.1f} s)")
     bias_sd = np.sqrt(np.stack([np.diagonal(Ps, axis1=1, axis2=2)[:, 9:15]])[0])
     settings_out = {
-        "fusion": "GNSS/IMU error-state EKF (15 states) + RTS smoother on preintegrated IMU",
+        "fusion": "GNSS/IMU error-state EKF (18 states: 15 + receiver wander) + RTS smoother on preintegrated IMU",
+        "gnss_wander": wander_note,
+        "velocity_updates": vel_used,
+        "velocity_rejected": vel_rejected,
+        "zero_velocity_epochs": int(run.zupt.sum()),
         "imu_rate_hz": round(imu_rate_hz, 3),
         "imu_noise_class": spec.name,
         "time_offset_s": offset,
@@ -440,13 +615,21 @@ def _fuse_once(t, enu, sig, imu: ImuLog, spec: MemsSpec, cfg: dict, msgs: list[s
         "fixes_rejected": rejected,
         "outages": len(outages),
         **{k: cfg[k] for k in ("output_rate_hz", "accel_smoothing_s", "max_epoch_s", "gate_prob", "iterations", "decorrelation_s",
-                               "stationary_speed_mps")},
+                               "stationary_speed_mps", "velocity_sigma_mps", "course_min_speed_mps")},
     }
     return FusedPath(
         **path, outage=out_mask, outages=tuple(outages), epoch_time_s=epochs, accel_bias_mps2=xs.ba,
         gyro_bias_radps=xs.bg, bias_sd=bias_sd, epoch_cov=Ps, time_offset_s=offset, fixes_used=int(run.accepted.sum()),
-        fixes_rejected=rejected, settings=settings_out, messages=tuple(msgs),
+        fixes_rejected=rejected, settings=settings_out, messages=tuple(msgs), gnss_wander_m=xs.wb,
+        epoch_zupt=run.zupt.copy(), stops=tuple(stops),
     )
+
+
+def _runs(epochs: FloatArray, mask: NDArray[np.bool_]) -> list[tuple[float, float]]:
+    """(start_s, end_s) of every run of consecutive True epochs."""
+    d = np.diff(np.concatenate(([0], mask.astype(np.int8), [0])))
+    starts, ends = np.flatnonzero(d == 1), np.flatnonzero(d == -1) - 1
+    return [(float(epochs[a]), float(epochs[b])) for a, b in zip(starts, ends)]
 
 
 def _outages(used_t: FloatArray, factor: float) -> list[tuple[float, float]]:

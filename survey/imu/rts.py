@@ -18,14 +18,14 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-from .eskf import BA, BG, NX, P_, TH, V_, FilterRun, NavStates, inject
+from .eskf import BA, BG, NX, P_, TH, V_, WB, FilterRun, NavStates, inject
 from .preint import so3_log
 
 FloatArray = NDArray[np.float64]
 
 
 def smoother_gains(run: FilterRun) -> FloatArray:
-    """(N-1, 15, 15) RTS gains C_k, from one batched linear solve."""
+    """(N-1, NX, NX) RTS gains C_k, from one batched linear solve."""
     # C_k^T = P_p,k+1^-1 Phi_k P_f,k  (P symmetric)
     rhs = run.Phi @ run.Pf[:-1]
     return np.swapaxes(np.linalg.solve(run.Pp[1:], rhs), 1, 2)
@@ -34,7 +34,7 @@ def smoother_gains(run: FilterRun) -> FloatArray:
 def rts_smooth(run: FilterRun) -> tuple[NavStates, FloatArray]:
     """Smoothed states and covariances at every epoch."""
     N = len(run.Pf)
-    xs = NavStates(run.xf.p.copy(), run.xf.v.copy(), run.xf.R.copy(), run.xf.ba.copy(), run.xf.bg.copy())
+    xs = run.xf.copy()
     Ps = run.Pf.copy()
     if N < 2:
         return xs, Ps
@@ -47,6 +47,7 @@ def rts_smooth(run: FilterRun) -> tuple[NavStates, FloatArray]:
         d[TH] = so3_log(run.xp.R[k + 1].T @ xs.R[k + 1])
         d[BA] = xs.ba[k + 1] - run.xp.ba[k + 1]
         d[BG] = xs.bg[k + 1] - run.xp.bg[k + 1]
+        d[WB] = xs.wb[k + 1] - run.xp.wb[k + 1]
         Ck = C[k]
         xs.set(k, inject(run.xf.get(k), Ck @ d))
         dP_next = Ps[k + 1] - run.Pp[k + 1]
