@@ -45,9 +45,12 @@ def fuse_loaded(
     if track.suspect is not None:
         enu[track.suspect] = np.nan  # multipath jumps take no part in the fusion
     keep = np.isfinite(enu[:, 0])
+    # speed and course over ground, when the log has them, become GNSS velocity updates
     return fuse(track.time_s[keep], enu[keep],
                 None if track.accuracy_m is None else track.accuracy_m[keep],
-                imu, time_offset_s=clock_offset_s)
+                imu, time_offset_s=clock_offset_s,
+                speed_mps=None if track.speed_mps is None else track.speed_mps[keep],
+                course_deg=None if track.course_deg is None else track.course_deg[keep])
 
 
 def add_imu_fields(profile: Profile, fused: FusedPath) -> Profile:
