@@ -64,7 +64,8 @@ DEFAULTS = {
     # Receiver wander as Gauss-Markov filter states. None = automatic: phone-like logs (no stated
     # accuracy, or a median stated accuracy above phone_accuracy_m) WITH GNSS velocities take the
     # phone grade of survey.synthetic.GNSS_GRADES (3 m, 60 s; split of white and wander: common
-    # practice), capped so that the white part keeps half the stated total; every other log a
+    # practice), capped at an equal split of the stated total (white keeps >= 1/sqrt(2) of it, so
+    # a log whose error is mostly white is not gated too hard); every other log a
     # small wander of small_wander_fraction x the stated accuracy (without velocities the wander
     # cannot be told from the path, and modelling it only softens the fixes).
     "wander_sigma_m": None,
@@ -483,16 +484,16 @@ def gnss_velocity_en(n: int, speed_mps: FloatArray | None, course_deg: FloatArra
 def wander_model(sig: FloatArray, stated: bool, has_velocity: bool, cfg: dict) -> tuple[FloatArray, FloatArray, str]:
     """Receiver wander 1-sigma per axis (east, north, up), white horizontal 1-sigma per fix, and a
     description. The stated (or assumed) accuracy is taken as the total sqrt(white^2 + wander^2);
-    the white part keeps at least half of it."""
+    the white part keeps at least 1/sqrt(2) of it (an equal split at most)."""
     med = float(np.median(sig))
     if cfg["wander_sigma_m"] is not None:
         w, how = float(cfg["wander_sigma_m"]), "given"
     elif has_velocity and (not stated or med > cfg["phone_accuracy_m"]):
-        w, how = min(float(cfg["phone_wander_sigma_m"]), np.sqrt(0.75) * med), "phone-like log with velocities"
+        w, how = min(float(cfg["phone_wander_sigma_m"]), np.sqrt(0.5) * med), "phone-like log with velocities"
     else:
         w, how = max(cfg["small_wander_fraction"] * med, 1e-3), "small (log states sub-metre accuracy)"
     w = max(w, 1e-3)  # a strictly positive variance keeps the smoother's covariances invertible
-    white = np.sqrt(np.maximum(sig**2 - w**2, 0.25 * sig**2))
+    white = np.sqrt(np.maximum(sig**2 - w**2, 0.5 * sig**2))
     return np.array([w, w, cfg["vertical_factor"] * w]), white, f"{w:.3g} m, {cfg['wander_tau_s']:g} s ({how})"
 
 

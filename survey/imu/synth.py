@@ -6,7 +6,9 @@ Motion
 The mover stands still for ``static_s`` seconds (a static start, as loggers are usually switched
 on at rest), accelerates smoothly to ``speed_mps`` over ``ramp_s`` seconds (raised-cosine
 acceleration, so acceleration and jerk stay finite), then keeps that speed to the end of the
-curve. Chainage s(t) is closed form; the curve parameter u(s) comes from the curve's arc-length
+curve, except at optional stops: at each ``(chainage_m, duration_s)`` the mover brakes over ``ramp_s``
+(the mirror of the start ramp), stands still for the duration and pulls away again. Chainage s(t)
+is closed form; the curve parameter u(s) comes from the curve's arc-length
 table. With r' = dr/du, r'' and the speed s' and s'':
 
     velocity      = r' u',                 u'  = s' / |r'|
@@ -187,6 +189,7 @@ class Motion:
     t0_s: float
     u_table: FloatArray
     s_table: FloatArray
+    stops: tuple[tuple[float, float], ...] = ()
 
     @property
     def length_m(self) -> float:
@@ -196,12 +199,36 @@ class Motion:
     def duration_s(self) -> float:
         """Time to reach the end of the curve, s."""
         ramp_len = 0.5 * self.speed_mps * self.ramp_s
-        return self.static_s + self.ramp_s + (self.length_m - ramp_len) / self.speed_mps
+        lost = sum(self.ramp_s + d for _, d in self.stops)
+        return self.static_s + self.ramp_s + (self.length_m - ramp_len) / self.speed_mps + lost
+
+    def stop_times(self) -> list[tuple[float, float]]:
+        """(brake start, pull-away start) times of every stop; standing still from brake start +
+        ramp_s to pull-away start."""
+        V, T = self.speed_mps, self.ramp_s
+        out, lost = [], 0.0
+        for c, d in self.stops:
+            ta = self.t0_s + self.static_s + c / V + lost
+            out.append((ta, ta + T + d))
+            lost += T + d
+        return out
 
     def chainage(self, time_s: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
-        """(s, s', s'') at times: raised-cosine acceleration a = V/T (1 - cos(2 pi tau/T))."""
+        """(s, s', s'') at times: raised-cosine acceleration a = V/T (1 - cos(2 pi tau/T)); each stop
+        subtracts a pull-away ramp started at the brake time and adds one back at the pull-away
+        time (speed V (1 - ramp(t - ta) + ramp(t - tb)))."""
+        t = np.asarray(time_s, float)
+        s, sd, sdd = self._ramp(t - self.t0_s - self.static_s)
+        for ta, tb in self.stop_times():
+            for sign, t_ref in ((-1.0, ta), (1.0, tb)):
+                a, b, c = self._ramp(t - t_ref)
+                s, sd, sdd = s + sign * a, sd + sign * b, sdd + sign * c
+        s = np.minimum(s, self.length_m)
+        return s, sd, sdd
+
+    def _ramp(self, tau: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
+        """Chainage, speed and acceleration of one pull-away from rest at tau = 0."""
         V, T = self.speed_mps, self.ramp_s
-        tau = np.asarray(time_s, float) - self.t0_s - self.static_s
         s = np.zeros_like(tau)
         sd = np.zeros_like(tau)
         sdd = np.zeros_like(tau)
@@ -215,7 +242,6 @@ class Motion:
         c = tau >= T
         s[c] = 0.5 * V * T + V * (tau[c] - T)
         sd[c] = V
-        s = np.minimum(s, self.length_m)
         return s, sd, sdd
 
     def kinematics(self, time_s: FloatArray, with_attitude: bool = False) -> dict[str, FloatArray]:
@@ -249,10 +275,12 @@ class Motion:
 
 
 def make_motion(curve: Curve, speed_mps: float, static_s: float = 10.0, ramp_s: float = 5.0,
-                bank: BankFn = no_bank, t0_s: float = 0.0) -> Motion:
-    """A ``Motion`` along ``curve`` (see module docstring)."""
+                bank: BankFn = no_bank, t0_s: float = 0.0, stops=()) -> Motion:
+    """A ``Motion`` along ``curve`` (see module docstring); ``stops`` are ``(chainage_m,
+    duration_s)`` pairs in increasing chainage, at least ``speed_mps * ramp_s`` apart."""
     u_tab, s_tab = curve.arc_length_table()
-    return Motion(curve, float(speed_mps), float(static_s), float(ramp_s), bank, float(t0_s), u_tab, s_tab)
+    return Motion(curve, float(speed_mps), float(static_s), float(ramp_s), bank, float(t0_s), u_tab, s_tab,
+                  tuple((float(c), float(d)) for c, d in stops))
 
 
 def imu_truth(motion: Motion, rate_hz: float = 200.0, jitter: float = 0.0,
