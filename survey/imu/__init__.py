@@ -3,7 +3,8 @@ with Rauch-Tung-Striebel smoothing, GNSS-IMU time offset, and the top-level ``fu
 
 Modules: ``reader`` (IMU CSV -> ``ImuLog``, ``check_imu``), ``synth`` (IMU truth from the
 closed-form curves, MEMS error model), ``preint`` (vectorised IMU preintegration between GNSS
-epochs), ``eskf`` (15-state error-state filter at the GNSS rate), ``rts`` (smoother), ``timing``
+epochs), ``eskf`` (18-state error-state filter at the GNSS rate: 15 + receiver wander), ``gnss_synth``
+(synthetic receiver speed and course), ``rts`` (smoother), ``timing``
 (offset by cross-correlation), ``fuse`` (everything strung together -> ``FusedPath``).
 """
 

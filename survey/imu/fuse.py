@@ -1,6 +1,6 @@
 """GNSS/IMU fusion for the whole log: alignment, filter, smoother, dense fused path.
 
-``fuse(time_s, enu_m, sigma_h_m, imu)`` runs
+``fuse(time_s, enu_m, sigma_h_m, imu, speed_mps=..., course_deg=...)`` runs
 
 1. Checks (``check_imu``) and the overlap: GNSS fixes outside the IMU span are left out.
 2. GNSS-IMU time offset: used as given, else estimated by cross-correlation (``timing``).
@@ -9,6 +9,12 @@
 4. Initial alignment from the first seconds: a static start (IMU still) gives level from the mean
    specific force and the gyro bias from the mean rate, with zero-velocity updates; heading comes
    from the GNSS course once the mover has gone ``max(20 m, 10 sigma)`` (no sideslip assumed).
+   A moving start with GNSS velocities takes v0 and heading from the first course and corrects the
+   level by the acceleration fitted to the first velocities (``align``).
+4b. Measurements (``survey.imu.eskf``): positions measure p + receiver wander (Gauss-Markov states,
+   ``wander_model``), GNSS velocities (speed, course) measure v (speed only below
+   ``course_min_speed_mps``), and zero-velocity updates hold the stops where the IMU is still
+   (``still_epochs``) and the predicted speed is low.
 5. ``iterations`` passes of preintegration -> error-state filter -> RTS smoother, each pass
    re-linearising the preintegration at the previous pass's smoothed biases (first-order bias
    corrections then stay small).
