@@ -23,7 +23,7 @@ def add_reading_arguments(parser: argparse.ArgumentParser) -> None:
         metavar="ROLE=NAME,...",
         type=parse_columns,
         help="CSV column mapping, e.g. time=GPS Time,lat=Y,lon=X,height=Z (roles: time lat lon "
-        "height speed accuracy hdop satellites date)",
+        "height speed course accuracy hdop satellites date)",
     )
     group.add_argument(
         "--height-ref",
