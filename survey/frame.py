@@ -123,6 +123,39 @@ class LocalFrame:
         lon, lat = self._transformer.transform(e, n, direction=TransformDirection.INVERSE)
         return np.asarray(lat), np.asarray(lon), u.copy()
 
+    def ground_velocity(self, lat_deg, lon_deg, speed_mps, course_deg) -> tuple[np.ndarray, np.ndarray]:
+        """Receiver speed and true course over ground -> horizontal velocity (east, north) in this
+        frame, m/s per axis (arrays of the inputs' shape; NaN where speed or course is).
+
+        A course is measured from true north, but the frame's north is the grid north of a
+        projected CRS (off true north by the meridian convergence, about 2.5 degrees at the edge
+        of a UTM zone at 60 degrees latitude, and scaled by the grid scale factor) or, in the local
+        ENU frame, the north of its origin (off by about the longitude difference x sin(latitude)
+        away from it). So a metre of true north and of true east at every fix is carried through
+        ``forward`` (a 1e-6 degree step, its ground length from the WGS 84 meridian and
+        prime-vertical radii of curvature) and the velocity is v (sin(course) east_vector +
+        cos(course) north_vector).
+        """
+        lat = np.asarray(lat_deg, dtype=np.float64)
+        lon = np.asarray(lon_deg, dtype=np.float64)
+        a, f = 6378137.0, 1.0 / 298.257223563  # WGS 84 defining constants
+        e2 = f * (2.0 - f)
+        phi = np.radians(lat)
+        w = np.sqrt(1.0 - e2 * np.sin(phi) ** 2)
+        meridian_r = a * (1.0 - e2) / w**3  # M, metres of ground per radian of latitude
+        normal_r = a / w  # N; a parallel has radius N cos(phi)
+        step = 1e-6
+        e0, n0, _ = self.forward(lat, lon)
+        en, nn, _ = self.forward(lat + step, lon)
+        ee, ne, _ = self.forward(lat, lon + step)
+        rad = np.radians(step)
+        north = np.stack([en - e0, nn - n0]) / (meridian_r * rad)
+        east = np.stack([ee - e0, ne - n0]) / (normal_r * np.cos(phi) * rad)
+        c = np.radians(np.asarray(course_deg, dtype=np.float64))
+        v = np.asarray(speed_mps, dtype=np.float64)
+        vel = v * (np.sin(c) * east + np.cos(c) * north)
+        return vel[0], vel[1]
+
     def describe(self) -> str:
         """One line naming the frame and its origin, for summaries and file headers."""
         if self.kind == "enu":

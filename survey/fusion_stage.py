@@ -45,12 +45,30 @@ def fuse_loaded(
     if track.suspect is not None:
         enu[track.suspect] = np.nan  # multipath jumps take no part in the fusion
     keep = np.isfinite(enu[:, 0])
-    # speed and course over ground, when the log has them, become GNSS velocity updates
+    # speed and course over ground, when the log has them, become GNSS velocity updates; the
+    # course is from true north, so it is turned into the frame's own north first
+    speed, course = frame_speed_course(loaded)
     return fuse(track.time_s[keep], enu[keep],
                 None if track.accuracy_m is None else track.accuracy_m[keep],
                 imu, time_offset_s=clock_offset_s,
-                speed_mps=None if track.speed_mps is None else track.speed_mps[keep],
-                course_deg=None if track.course_deg is None else track.course_deg[keep])
+                speed_mps=None if speed is None else speed[keep],
+                course_deg=None if course is None else course[keep])
+
+
+def frame_speed_course(loaded: LoadedLog) -> tuple[np.ndarray | None, np.ndarray | None]:
+    """The log's speed (m/s) and course over ground (degrees clockwise from the frame's north)
+    in the run's frame (``LocalFrame.ground_velocity``: meridian convergence and grid scale);
+    the speed alone where the log has no course; (None, None) without a speed."""
+    track = loaded.track
+    if track.speed_mps is None:
+        return None, None
+    if track.course_deg is None:
+        return track.speed_mps, None
+    ve, vn = loaded.frame.ground_velocity(track.lat_deg, track.lon_deg, track.speed_mps, track.course_deg)
+    has_course = np.isfinite(ve)
+    speed = np.where(has_course, np.hypot(ve, vn), track.speed_mps)
+    course = np.where(has_course, np.degrees(np.arctan2(ve, vn)) % 360.0, np.nan)
+    return speed, course
 
 
 def add_imu_fields(profile: Profile, fused: FusedPath) -> Profile:

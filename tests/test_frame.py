@@ -101,3 +101,37 @@ def test_default_origin_takes_the_short_way_across_the_antimeridian():
     track = make_track("t", "csv", [0, 1], [-16.0, -16.1], [179.9, -179.9])
     frame = LocalFrame.for_track(track)
     assert abs(abs(frame.origin_lon_deg) - 180.0) < 0.2
+
+
+def test_true_north_course_in_a_utm_grid_turns_by_the_meridian_convergence():
+    # Oracle: PROJ's own analytic projection factors (pyproj Proj.get_factors): meridian
+    # convergence 2.55 deg and point scale k at 61.7 N, 11.9 E in UTM zone 32N (central meridian
+    # 9 E). East of the central meridian in the northern hemisphere true north lies west of grid
+    # north (common practice), so a true-north course has grid azimuth -convergence.
+    from pyproj import CRS, Proj
+
+    factors = Proj(CRS("EPSG:32632")).get_factors(11.9, 61.7)
+    frame = LocalFrame.projected("EPSG:32632", 61.7, 11.9, 0.0)
+    ve, vn = frame.ground_velocity(np.array([61.7]), np.array([11.9]), np.array([10.0]), np.array([0.0]))
+    assert np.degrees(np.arctan2(ve[0], vn[0])) == pytest.approx(-factors.meridian_convergence, abs=1e-6)
+    assert np.hypot(ve[0], vn[0]) == pytest.approx(10.0 * factors.meridional_scale, rel=1e-7)
+
+
+def test_true_east_course_far_from_the_enu_origin_follows_the_geodesic_east():
+    # Oracle: geographiclib (a geodesic 1 m long at azimuth 90 deg = true east) placed in the
+    # origin's ENU frame by pymap3d; 150 km east of the origin the frame's east is ~2.5 deg off.
+    lat, lon = 61.7, 11.9
+    frame = LocalFrame.enu(61.7, 9.0, 0.0)
+    g = Geodesic.WGS84.Direct(lat, lon, 90.0, 1.0)
+    e0, n0, _ = pymap3d.geodetic2enu(lat, lon, 0.0, 61.7, 9.0, 0.0)
+    e1, n1, _ = pymap3d.geodetic2enu(g["lat2"], g["lon2"], 0.0, 61.7, 9.0, 0.0)
+    ve, vn = frame.ground_velocity(np.array([lat]), np.array([lon]), np.array([1.0]), np.array([90.0]))
+    assert np.degrees(np.arctan2(ve[0], vn[0])) == pytest.approx(np.degrees(np.arctan2(e1 - e0, n1 - n0)), abs=1e-4)
+    assert np.hypot(ve[0], vn[0]) == pytest.approx(np.hypot(e1 - e0, n1 - n0), rel=1e-5)
+
+
+def test_ground_velocity_is_nan_where_the_course_is_missing():
+    frame = LocalFrame.enu(61.7, 9.0, 0.0)
+    ve, vn = frame.ground_velocity(np.array([61.7, 61.7]), np.array([9.0, 9.0]), np.array([2.0, 2.0]),
+                                   np.array([np.nan, 45.0]))
+    assert np.isnan(ve[0]) and np.isnan(vn[0]) and np.isfinite(ve[1])

@@ -70,3 +70,25 @@ def test_an_imu_log_that_does_not_overlap_the_gnss_log_is_refused(tmp_path, caps
     err = capsys.readouterr().err
     assert code == 1 and err.count("\n") == 1 and "late_imu.csv" in err
     assert not (tmp_path / "x.csv").exists()
+
+
+def test_course_from_true_north_is_turned_into_the_utm_grid_for_the_filter():
+    # Oracle: PROJ's analytic meridian convergence and scale (pyproj Proj.get_factors) at a fix
+    # near the edge of UTM zone 32N: a course measured from true north is that much off grid north.
+    from pyproj import CRS, Proj
+
+    from survey.frame import LocalFrame
+    from survey.fusion_stage import frame_speed_course
+    from survey.pipeline import LoadedLog
+    from survey.track import make_track
+
+    track = make_track("log.nmea", "nmea", [0.0, 1.0, 2.0], [61.7, 61.7001, 61.7002], [11.9, 11.9, 11.9],
+                       speed_mps=[0.0, 12.0, 12.0], course_deg=[np.nan, 10.0, 350.0])
+    frame = LocalFrame.projected("EPSG:32632", 61.7, 11.9, 0.0)
+    loaded = LoadedLog(track, None, frame, np.zeros((3, 3)))
+    speed, course = frame_speed_course(loaded)
+    f = Proj(CRS("EPSG:32632")).get_factors(11.9, 61.7001)
+    assert course[1] == pytest.approx(10.0 - f.meridian_convergence, abs=1e-5)
+    assert course[2] == pytest.approx(350.0 - f.meridian_convergence, abs=1e-5)
+    assert speed[1] == pytest.approx(12.0 * f.meridional_scale, rel=1e-6)
+    assert np.isnan(course[0]) and speed[0] == 0.0  # no course: the speed alone, unchanged
