@@ -92,8 +92,13 @@ def van_route(out: Path) -> Path:
     fixes = syn.add_outage(fixes, tunnel_start_s, 20.0)
     frame = LocalFrame.enu(55.93210, -4.31780, 95.0)
     track = syn.fixes_to_track(fixes, frame.inverse, height_ref=HEIGHT_ELLIPSOID, with_accuracy=False)
-    speeds = np.linalg.norm(truth.trajectory(fixes.time_s).velocity_mps, axis=1)
-    track = track.with_arrays(speed_mps=speeds)
+    # Doppler speed and course over ground as the receiver reports them in RMC: the true
+    # horizontal velocity plus 0.05 m/s white noise per axis (dual-frequency class, from memory);
+    # no course below 0.5 m/s, where receivers leave the field empty (common practice)
+    vel = truth.trajectory(fixes.time_s).velocity_mps[:, :2] + rng.normal(0.0, 0.05, (len(fixes.time_s), 2))
+    speeds = np.hypot(vel[:, 0], vel[:, 1])
+    course = np.where(speeds >= 0.5, np.degrees(np.arctan2(vel[:, 0], vel[:, 1])) % 360.0, np.nan)
+    track = track.with_arrays(speed_mps=speeds, course_deg=course)
     text = nmea_text(track, geoid_separation_m=52.4)
     lines = text.split("\r\n")
     for i in (101, 503, 907):  # damage a few sentences the way a serial line does

@@ -83,8 +83,7 @@ def add_imu_fields(profile: Profile, fused: FusedPath) -> Profile:
         return np.where(inside, fused.interp(np.asarray(values, float), tt), np.nan)
 
     outage = at(fused.outage.astype(float)) >= 0.5
-    settings = dict(profile.settings)
-    settings.update({f"imu_{k}": v for k, v in fused.settings.items()})
+    # the fusion's settings are already in the profile's (``fusion_*``, from build_profile)
     return replace(
         profile,
         bank_deg=np.degrees(at(fused.bank_rad)),
@@ -93,5 +92,4 @@ def add_imu_fields(profile: Profile, fused: FusedPath) -> Profile:
         gyro_plan_curvature_per_m=at(fused.gyro_plan_curvature_per_m),
         pitch_deg=np.degrees(at(fused.pitch_rad)),
         imu_outage=outage & inside,
-        settings=settings,
     )
