@@ -565,7 +565,8 @@ class Fixes:
     """What a receiver would log: times, local positions, per-fix horizontal 1-sigma accuracy.
 
     ``truth_index`` maps every fix back to its sample in the source ``Trajectory``;
-    ``outlier`` marks fixes corrupted by ``add_outliers``.
+    ``outlier`` marks fixes corrupted by ``add_outliers``; ``velocity_mps`` (n, 2), when set by
+    ``add_doppler_velocity``, is the horizontal velocity (east, north) the receiver reports.
     """
 
     time_s: FloatArray
@@ -573,6 +574,7 @@ class Fixes:
     accuracy_m: FloatArray
     truth_index: NDArray[np.int64]
     outlier: NDArray[np.bool_] = field(default=None)  # type: ignore[assignment]
+    velocity_mps: FloatArray | None = None
 
     def __post_init__(self):
         if self.outlier is None:
@@ -583,7 +585,8 @@ class Fixes:
 
     def take(self, index) -> "Fixes":
         return Fixes(self.time_s[index], self.enu_m[index], self.accuracy_m[index],
-                     self.truth_index[index], self.outlier[index])
+                     self.truth_index[index], self.outlier[index],
+                     None if self.velocity_mps is None else self.velocity_mps[index])
 
 
 def exact_fixes(traj: Trajectory, accuracy_m: float = 0.0) -> Fixes:
@@ -673,6 +676,22 @@ def duplicate_fixes(fixes: Fixes, frac: float = 0.01, rng: np.random.Generator |
     return fixes.take(idx)
 
 
+#: Receiver velocity (Doppler) 1-sigma per horizontal axis, m/s: phone ~0.15, dual-frequency
+#: ~0.05, RTK ~0.02 (from memory; receivers measure velocity from the carrier Doppler, which the
+#: slow position wander does not enter).
+DOPPLER_SIGMA_MPS: dict[str, float] = {"rtk": 0.02, "dual": 0.05, "phone": 0.15}
+
+
+def add_doppler_velocity(fixes: Fixes, traj: Trajectory, grade: str = "dual", rng: np.random.Generator | None = None,
+                         sigma_mps: float | None = None) -> Fixes:
+    """Fixes that also report their horizontal velocity: the true velocity of their trajectory
+    sample plus white noise of ``DOPPLER_SIGMA_MPS[grade]`` (or ``sigma_mps``) per axis."""
+    rng = rng or np.random.default_rng()
+    sigma = DOPPLER_SIGMA_MPS[grade] if sigma_mps is None else sigma_mps
+    v = traj.velocity_mps[fixes.truth_index, :2] + rng.standard_normal((len(fixes), 2)) * sigma
+    return replace(fixes, velocity_mps=v)
+
+
 def fixes_to_track(
     fixes: Fixes,
     inverse: Callable[[FloatArray, FloatArray, FloatArray], tuple[FloatArray, FloatArray, FloatArray]],
@@ -686,7 +705,12 @@ def fixes_to_track(
 
     lat, lon, h = inverse(fixes.enu_m[:, 0], fixes.enu_m[:, 1], fixes.enu_m[:, 2])
     t = fixes.time_s if with_time else np.full(len(fixes), np.nan)
+    speed = course = None
+    if fixes.velocity_mps is not None:  # frame north taken as true north (small synthetic scenes)
+        ve, vn = fixes.velocity_mps[:, 0], fixes.velocity_mps[:, 1]
+        speed = np.hypot(ve, vn)
+        course = np.degrees(np.arctan2(ve, vn)) % 360.0
     return make_track(
         path, "csv", t, lat, lon, h, height_ref=height_ref, reader="synthetic",
-        accuracy_m=fixes.accuracy_m if with_accuracy else None,
+        accuracy_m=fixes.accuracy_m if with_accuracy else None, speed_mps=speed, course_deg=course,
     )

@@ -117,3 +117,24 @@ def test_corruptions_mark_outliers_drop_an_outage_and_repeat_fixes():
     dup = S.duplicate_fixes(cut, frac=0.02, rng=rng)
     assert len(dup) - len(cut) == round(0.02 * len(cut))
     assert np.sum(np.diff(dup.time_s) == 0.0) == len(dup) - len(cut)
+
+
+def test_doppler_velocity_is_the_true_velocity_plus_white_noise_of_the_grade():
+    # Truth: a helix flown at 10 m/s has horizontal speed 10 a / sqrt(a^2 + c^2) (closed form,
+    # do Carmo 1976); the reported velocity scatters about it by the grade's 1-sigma per axis.
+    traj = S.helix(50.0, 5.0, 10.0, 10.0, 1.0)
+    fixes = S.add_doppler_velocity(S.exact_fixes(traj), traj, "phone", np.random.default_rng(3))
+    err = fixes.velocity_mps - traj.velocity_mps[:, :2]
+    assert np.std(err) == pytest.approx(S.DOPPLER_SIGMA_MPS["phone"], rel=0.1)
+    horizontal = 10.0 * 50.0 / np.hypot(50.0, 5.0)
+    assert np.median(np.hypot(*fixes.velocity_mps.T)) == pytest.approx(horizontal, abs=0.05)
+
+
+def test_fixes_with_velocity_become_a_track_with_speed_and_true_course():
+    # A mover heading north-east at 2 m/s: course 45 degrees (clockwise from north), speed 2 m/s.
+    traj = S.exact_fixes(S.switchbacks())
+    v = np.tile([np.sqrt(2.0), np.sqrt(2.0)], (len(traj), 1))
+    from dataclasses import replace
+
+    track = S.fixes_to_track(replace(traj, velocity_mps=v), lambda e, n, u: (46.5 + n * 1e-5, 7.6 + e * 1e-5, u))
+    assert np.allclose(track.speed_mps, 2.0) and np.allclose(track.course_deg, 45.0)
