@@ -78,13 +78,20 @@ CSV_DECIMALS = {
     "vertical_curvature_per_m": 10, "lateral_accel_mps2": 5, "segment": 0,
 }
 _CHUNK_ROWS = 50_000
+#: 10^1 .. 10^18: a non-negative integer k has searchsorted(_POW10, k, "right") + 1 digits.
+_POW10 = 10 ** np.arange(1, 19, dtype=np.int64)
 _MAX_SCALED = 9.0e17  # below 2^63 with margin
 
 
 def _fixed_bytes(values: np.ndarray, decimals: int) -> np.ndarray | None:
     """(n, width) uint8 ASCII of ``values`` in fixed-point with ``decimals`` decimals, padded
     with zero bytes on the left; a non-finite value gives an empty cell (all zeros). None when a
-    value is too large for exact integer formatting (the caller then uses the slow path)."""
+    value is too large for exact integer formatting (the caller then uses the slow path).
+
+    Digits are peeled off the scaled integer q one at a time, q = 10 floor(q / 10) + digit. Below
+    2^52 this is done in float64 (vectorised division and floor, exact there: q / 10 is correctly
+    rounded and its fraction is at least 0.1 away from the next integer), about three times
+    faster than int64 division; larger q use int64."""
     v = np.asarray(values, dtype=float)
     n = len(v)
     fin = np.isfinite(v)
@@ -92,28 +99,36 @@ def _fixed_bytes(values: np.ndarray, decimals: int) -> np.ndarray | None:
     a = np.where(fin, np.abs(v) * scale, 0.0)
     if np.any(a >= _MAX_SCALED):
         return None
-    q = np.rint(a).astype(np.int64)
+    q = np.rint(a)
+    exact_float = not np.any(q >= 2.0**52)
+    if not exact_float:
+        q = q.astype(np.int64)
     neg = fin & (v < 0) & (q > 0)
-    p10 = 10 ** np.int64(decimals)
-    ip, frac = q // p10, q % p10
-    nd = np.searchsorted(10 ** np.arange(1, 19, dtype=np.int64), ip, side="right") + 1  # integer digits
+    ip = np.floor(q / scale) if exact_float else q // 10 ** np.int64(decimals)
+    nd = np.searchsorted(_POW10, ip, side="right") + 1  # integer digits
     wi = int(nd.max(initial=1))
     width = 1 + wi + (1 + decimals if decimals else 0)
     out = np.zeros((n, width), np.uint8)
     col = width - 1
-    for _ in range(decimals):
-        out[:, col] = 48 + (frac % 10)
-        frac //= 10
+    digit = np.empty_like(q)
+    for j in range(decimals + 1 + wi if decimals else wi):
+        if decimals and j == decimals:
+            out[:, col] = 46  # "."
+            col -= 1
+            continue
+        if exact_float:
+            rest = np.floor(q / 10.0)
+            np.subtract(q, 10.0 * rest, out=digit)
+        else:
+            rest, digit = np.divmod(q, 10)
+        digit += 48
+        if j > decimals:  # integer digits beyond the first: blank where the number has fewer
+            digit[j - decimals - (1 if decimals else 0) >= nd] = 0
+        out[:, col] = digit
+        q = rest
         col -= 1
-    if decimals:
-        out[:, col] = 46  # "."
-        col -= 1
-    for j in range(wi):
-        digit = (48 + ip % 10).astype(np.uint8)
-        out[:, col - j] = np.where(j < nd, digit, 0)
-        ip //= 10
     rows = np.flatnonzero(neg)
-    out[rows, col - nd[rows]] = 45  # "-"
+    out[rows, wi - nd[rows]] = 45  # "-" just left of the first digit
     out[~fin] = 0
     return out
 
@@ -128,8 +143,8 @@ def _text_table(strings: list[str]) -> np.ndarray:
     return out
 
 
-def _fast_chunk(profile: Profile, names: list[str], a: int, b: int) -> str | None:
-    """CSV text of stations a..b, assembled as one byte matrix (no per-row Python)."""
+def _fast_chunk(profile: Profile, names: list[str], a: int, b: int) -> bytes | None:
+    """CSV bytes (ASCII) of stations a..b, assembled as one byte matrix (no per-row Python)."""
     from .stations import TORSION_REASONS
 
     sep = np.full((b - a, 1), 44, np.uint8)
@@ -147,7 +162,7 @@ def _fast_chunk(profile: Profile, names: list[str], a: int, b: int) -> str | Non
         parts.append(block)
         parts.append(sep if i < len(names) - 1 else np.full((b - a, 1), 10, np.uint8))
     flat = np.concatenate(parts, axis=1).ravel()
-    return flat[flat != 0].tobytes().decode("ascii")
+    return flat[flat != 0].tobytes()
 
 
 def _write_csv_stream(profile: Profile, fh) -> None:
@@ -157,13 +172,17 @@ def _write_csv_stream(profile: Profile, fh) -> None:
     w = csv.writer(fh, lineterminator="\n")
     w.writerow(names)
     fast = all(n in CSV_DECIMALS or n == "torsion_note" for n in names)
+    raw = getattr(fh, "buffer", None)  # a text file's byte stream: ASCII needs no encoding pass
     for a in range(0, len(profile), _CHUNK_ROWS):
         b = min(len(profile), a + _CHUNK_ROWS)
-        text = _fast_chunk(profile, names, a, b) if fast else None
-        if text is None:  # a column this writer cannot format exactly: the general path
+        data = _fast_chunk(profile, names, a, b) if fast else None
+        if data is None:  # a column this writer cannot format exactly: the general path
             w.writerows(_rows(profile, a, b))
+        elif raw is not None:
+            fh.flush()  # what went through the text layer first
+            raw.write(data)
         else:
-            fh.write(text)
+            fh.write(data.decode("ascii"))
 
 
 def write_xlsx(profile: Profile, out, force: bool = False) -> None:
