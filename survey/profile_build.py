@@ -50,7 +50,7 @@ from __future__ import annotations
 import numpy as np
 
 from . import __version__
-from .geometry import frenet
+from .geometry import curvature_torsion, frenet
 from .smooth import NoiseModel, fit_noise, robust_white_var, screen_outliers, smooth_stretch
 from .stations import TORSION_LOW_CURVATURE, TORSION_NO_DATA, TORSION_OK, Profile
 from .track import HEIGHT_NONE, Track
@@ -382,8 +382,8 @@ def _uncertainty(sm, t_start, t_end, step_m, cfg, rng) -> dict:
     m = len(te)
     ns = int(cfg["n_samples"])
     est = sm.at(te)
-    g0 = frenet(est[:, :, 1], est[:, :, 2], est[:, :, 3])
-    k0, t0 = g0["curvature_per_m"], np.nan_to_num(g0["torsion_per_m"])
+    k0, t0 = curvature_torsion(est[:, :, 1], est[:, :, 2], est[:, :, 3])
+    t0 = np.nan_to_num(t0)
     dk2 = np.zeros(m)
     dv2 = np.zeros(m)
     dtau = np.empty((ns, m))
@@ -391,11 +391,11 @@ def _uncertainty(sm, t_start, t_end, step_m, cfg, rng) -> dict:
     for a in range(0, ns, block):
         b = min(ns, a + block)
         smp = sm.samples_at(sm.draw(b - a, rng), te)
-        g = frenet(smp[..., 1], smp[..., 2], smp[..., 3])
-        dk2 += np.sum((g["curvature_per_m"] - k0) ** 2, axis=0)
-        dtau[a:b] = np.abs(np.nan_to_num(g["torsion_per_m"]) - t0)
+        kappa, tau = curvature_torsion(smp[..., 1], smp[..., 2], smp[..., 3])
+        dk2 += np.sum((kappa - k0) ** 2, axis=0)
+        dtau[a:b] = np.abs(np.nan_to_num(tau) - t0)
         dv2 += np.sum((smp[..., 1] - est[None, :, :, 1]) ** 2, axis=(0, 2))
-        del smp, g
+        del smp, kappa, tau
     size = 2 * int(cfg["sd_pool_knots"]) + 1
 
     def pool(x):
