@@ -478,23 +478,27 @@ def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, 
     F, Qinv, logdet_q = _prior_blocks(m, design.h)
     A = F.T @ Qinv @ F
     Bo = -F.T @ Qinv
-    gram = (_interval_sums(design, w, N_LEG) @ C).reshape(K - 1, 2 * d, 2 * d)
-    diag = np.zeros((K, d, d))
-    diag[:-1] += A + gram[:, :d, :d]
-    diag[1:] += Qinv + gram[:, d:, d:]
     p0 = _prior0(m, pos_sd)
-    diag[0] += np.diag(p0)
-    off = Bo + gram[:, :d, d:]
+    # only the data-term entries the upper band needs, each one contiguous row (K-1,)
+    C3 = C.reshape(N_LEG, 2 * d, 2 * d)
+    gT = (C3.transpose(1, 2, 0).reshape(4 * d * d, N_LEG) @ _interval_sums(design, w, N_LEG).T).reshape(
+        2 * d, 2 * d, K - 1)
+    ab = np.zeros((u + 1, K * d))
+    band = np.empty(K)
+    for i in range(d):
+        for j in range(i, d):  # diagonal blocks: left knot of interval k, right knot of k-1
+            band[:-1] = gT[i, j] + A[..., i, j]
+            band[-1] = 0.0
+            band[1:] += gT[d + i, d + j] + Qinv[..., i, j]
+            if i == j:
+                band[0] += p0[i]
+            ab[u + i - j, j::d] = band
+        for j in range(d):  # off-diagonal block between knots k and k+1
+            ab[u + i - j - d, d + j :: d] = gT[i, d + j] + Bo[..., i, j]
     s = _interval_sums(design, w[:, None] * yy, 8) @ B.T  # (K-1, A, 2d)
     rhs = np.zeros((K, d, y.shape[1]))
     rhs[:-1] += np.swapaxes(s[:, :, :d], 1, 2)
     rhs[1:] += np.swapaxes(s[:, :, d:], 1, 2)
-    ab = np.zeros((u + 1, K * d))
-    for i in range(d):
-        for j in range(i, d):
-            ab[u + i - j, j::d] = diag[:, i, j]
-        for j in range(d):
-            ab[u + i - j - d, d + j :: d] = off[:, i, j]
     logdet_prior = float(np.sum(np.log(p0)) + (K - 1) * logdet_q)
     return AxisSystem(ab, rhs.reshape(K * d, -1), d, F, Qinv, logdet_prior, p0, w, yy, design, m)
 
