@@ -372,7 +372,7 @@ def _uncertainty(sm, t_start, t_end, step_m, cfg, rng) -> dict:
     realisations per draw. A few draws then give a stable 1-sigma and the cost stays a small
     multiple of one solve (``benchmarks/bench_profile.py``). Drawn a few samples at a time so
     memory stays bounded on long logs."""
-    from scipy.ndimage import uniform_filter1d
+    from scipy.ndimage import correlate1d
 
     fine = min(sm.groups, key=lambda g: g.h)
     if getattr(fine, "states", None) is not None:  # the finest knots themselves: no interpolation
@@ -399,7 +399,9 @@ def _uncertainty(sm, t_start, t_end, step_m, cfg, rng) -> dict:
     size = 2 * int(cfg["sd_pool_knots"]) + 1
 
     def pool(x):
-        return uniform_filter1d(x, size, mode="nearest") if size > 1 and len(x) > 1 else x
+        # a direct windowed mean (each output its own sum): a running sum would carry the
+        # rounding of a huge value (kappa near a stop) into later windows, even below zero
+        return correlate1d(x, np.full(size, 1.0 / size), mode="nearest") if size > 1 and len(x) > 1 else x
 
     return {
         "t": te,

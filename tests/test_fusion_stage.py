@@ -92,3 +92,12 @@ def test_course_from_true_north_is_turned_into_the_utm_grid_for_the_filter():
     assert course[2] == pytest.approx(350.0 - f.meridian_convergence, abs=1e-5)
     assert speed[1] == pytest.approx(12.0 * f.meridional_scale, rel=1e-6)
     assert np.isnan(course[0]) and speed[0] == 0.0  # no course: the speed alone, unchanged
+
+
+def test_curvature_sd_is_positive_wherever_curvature_is_given(fused_profile):
+    # A 1-sigma is a positive number (definition). The van's standing start makes kappa huge for
+    # a moment; pooling the sd with a running sum carried its rounding into the next windows and
+    # left NaN or zero there.
+    k, sd = fused_profile["curvature_per_m"], fused_profile["curvature_sd_per_m"]
+    given = np.isfinite(k)
+    assert given.any() and np.all(sd[given] > 0)
