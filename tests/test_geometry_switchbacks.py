@@ -18,8 +18,8 @@ SEEDS = (100, 101, 102)
 TRAJ = S.switchbacks(radius_m=8.0)
 
 
-def _profile(seed, with_accuracy=True, **kw):
-    f = S.add_gnss_error(TRAJ, "phone", np.random.default_rng(seed))
+def _profile(log_seed, with_accuracy=True, **kw):
+    f = S.add_gnss_error(TRAJ, "phone", np.random.default_rng(log_seed))
     track, _ = clean_track(S.fixes_to_track(f, FRAME.inverse, with_accuracy=with_accuracy))
     e, n, u = FRAME.forward(track.lat_deg, track.lon_deg, track.height_m)
     return build_profile(track, np.column_stack([e, n, u]), FRAME, **kw)
@@ -69,14 +69,21 @@ def test_without_stated_accuracy_the_wander_is_not_fitted_far_above_the_truth():
     assert all(true_var / 1.5 <= v <= 1.5 * true_var for v in fitted), fitted
 
 
-def test_without_stated_accuracy_turn_stations_are_rarely_claimed_sharper_than_6_m():
+@pytest.mark.xfail(strict=True, reason="known shortfall: at the turn stations 3.7-13.2 % of 8 m turns are "
+                   "claimed sharper than 6 m at 95 % (seeds 100-102, noise-draw seeds 0-3, with and without "
+                   "stated accuracy); the 1-sigma from repeated-noise draws does not hold the smoother's "
+                   "bias at a hairpin apex, where the estimate is sharper than the truth")
+def test_turn_stations_are_rarely_claimed_sharper_than_6_m_whatever_the_noise_draws():
     # Stations in the turns only (true kappa = 1/8 per metre there, closed form; located at the
     # same time on the true path): kappa > 1/6 + 1.64 sigma is a false one-sided 95 % claim and
-    # must stay at no more than ~5 % of them on every seed.
+    # must stay at no more than ~5 % of them on every log, with or without stated accuracy, and
+    # whichever seed the uncertainty's repeated-noise draws use (the claim must not depend on it).
     fractions = []
-    for seed in SEEDS:
-        p = _profile(seed, with_accuracy=False)
-        s_true = np.interp(p.time_s, TRAJ.time_s, TRAJ.chainage_m)
-        turn = np.interp(s_true, TRAJ.chainage_m, TRAJ.curvature_per_m) > 0.06
-        fractions.append(np.mean((p.curvature_per_m - 1.0 / 6.0 > 1.64 * p.curvature_sd_per_m)[turn]))
+    for with_accuracy in (True, False):
+        for draw_seed in range(4):
+            for seed in SEEDS:
+                p = _profile(seed, with_accuracy=with_accuracy, seed=draw_seed)
+                s_true = np.interp(p.time_s, TRAJ.time_s, TRAJ.chainage_m)
+                turn = np.interp(s_true, TRAJ.chainage_m, TRAJ.curvature_per_m) > 0.06
+                fractions.append(np.mean((p.curvature_per_m - 1.0 / 6.0 > 1.64 * p.curvature_sd_per_m)[turn]))
     assert max(fractions) <= 0.05, fractions
