@@ -82,7 +82,6 @@ without timestamps). Internally time is measured in knot intervals.
 
 from __future__ import annotations
 
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, replace
 from math import factorial
 
@@ -990,11 +989,6 @@ def grade_plane_correction(out: FloatArray, en_v: FloatArray, grade: FloatArray)
     out[..., 2, :] += grade[:, 0, None] * d[..., 0, :] + grade[:, 1, None] * d[..., 1, :]
 
 
-#: Smooth the horizontal and vertical groups of a stretch in two threads from this many fixes on
-#: (LAPACK and numpy release the GIL in the heavy steps; below it the thread start costs more).
-THREAD_MIN_FIXES = 50_000
-
-
 def _smooth_group(Y: FloatArray, var: FloatArray, w: FloatArray, m: NoiseModel, design: Design):
     v = np.where(w > 0, var / np.maximum(w, 1e-12), np.inf)
     sysm = build_system(design, Y, v, m)
@@ -1066,15 +1060,10 @@ def smooth_stretch(
     results: list = [None] * len(prepared)
     redo = [True] * len(prepared)
     for it in range(robust_iterations + 1):
-        jobs = [(g, Y[:, list(axes)], var, w_h if axes[0] < 2 else w_v, m, design)
-                for g, (axes, m, var, design) in enumerate(prepared) if redo[g]]
-        if len(jobs) > 1 and n >= THREAD_MIN_FIXES:  # the groups are independent: one per core
-            with ThreadPoolExecutor(max_workers=len(jobs)) as ex:
-                done = list(ex.map(lambda job: _smooth_group(*job[1:]), jobs))
-        else:
-            done = [_smooth_group(*job[1:]) for job in jobs]
-        for job, r in zip(jobs, done):
-            results[job[0]] = r
+        for g, (axes, m, var, design) in enumerate(prepared):
+            if redo[g]:
+                w = w_h if axes[0] < 2 else w_v
+                results[g] = _smooth_group(Y[:, list(axes)], var, w, m, design)
         if it == robust_iterations:
             break
         res_h = Y[:, :2] - results[0][3][:, :2]
