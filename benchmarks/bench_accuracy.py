@@ -27,7 +27,10 @@ Metrics (all on "curved parts": stations whose true kappa exceeds half the case'
                  the covariance of that process, closed form)
 Rows marked "white only" are diagnostics without a target: the same case with the wander left
 out of the receiver error (same white error size), to show what share of the error is the
-wander's.
+wander's. Rows marked "+ Doppler" are the same logs with the receiver's speed and course over
+ground as well (true velocity + white noise, survey.synthetic.DOPPLER_SIGMA_MPS), which the
+smoother measures beside the positions; they are checked against the case's own targets but
+are not the issue's (position-only) cases.
 Baseline columns (B_*) use the same metrics on the per-axis cubic smoothing spline (GCV) at
 the fix times. "x base" is baseline error / our error for the case's headline metric (>= 2 is the
 issue's target). "pass" checks the issue's target for that case; corrupted cases are checked
@@ -96,8 +99,11 @@ def length_floor(traj, grade: str, duration_s: float, covered_m: float) -> float
 
 def run_case(traj, grade, rng, corrupt=False, with_accuracy=True):
     white_only = grade.endswith(" white")
-    grade = grade.removesuffix(" white")
+    doppler = grade.endswith(" doppler")
+    grade = grade.removesuffix(" white").removesuffix(" doppler")
     f = S.add_gnss_error(traj, grade, rng, wander_m=0.0 if white_only else None)
+    if doppler:
+        f = S.add_doppler_velocity(f, traj, grade, rng)
     if corrupt:
         f = S.add_outliers(f, 0.01, 30.0, rng)
         f = S.add_outage(f, 0.3 * (traj.time_s[-1] - traj.time_s[0]), 5.0)
@@ -145,6 +151,12 @@ def cases(quick: bool):
         ("switchbacks phone no acc", S.switchbacks, "phone", False, {"R_med": 0.15}, "R_med"),
         ("road phone 1Hz no acc", lambda: S.road_alignment(rate_hz=1.0), "phone", False,
          {"R_med": 0.08, "k_rms": 0.15}, "R_med"),
+    ]
+    # logs that also report speed and course over ground (appended last: a case's number seeds
+    # its draws, so new rows go at the end)
+    rows += [
+        ("helix phone + Doppler", hx, "phone doppler", False, {"k_med": 0.04, "t_med": 0.08}, "t_med"),
+        ("switchbacks phone + Doppler", S.switchbacks, "phone doppler", False, {"R_med": 0.15}, "R_med"),
     ]
     rows = [(number,) + r for number, r in enumerate(rows)]  # the number seeds the case's draws
     if quick:

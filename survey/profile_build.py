@@ -9,6 +9,15 @@ Steps (one-way):
    time are merged (their mean, with the variance of one fix: repeated fixes add no information).
 3. Gross outliers (multipath jumps) are screened per segment before anything is fitted
    (``survey.smooth.screen_outliers``); Huber re-weighting in the smoother does the rest.
+   When the log reports speed and true course over ground (NMEA RMC/VTG, CSV columns) and has
+   time, each fix's horizontal velocity (``receiver_velocity``: turned into the frame's north,
+   none below ``velocity_min_speed_mps``) is measured by the horizontal smoother beside its
+   position, with 1-sigma ``velocity_sigma_mps`` per axis (``use_velocity`` False: positions
+   only). A receiver's Doppler velocity does not carry the slow position wander, which
+   otherwise takes part of every tight turn: measured on phone switchbacks of 8 m radius at
+   1 Hz (seeds 0-5): arc radius error 29 % -> 8.6 % median, chainage error 2.8 % -> 0.7 %; phone
+   helix kappa 4.3 % -> 0.9 % (``tests/test_geometry_doppler.py``, benchmarks/bench_accuracy.py).
+   The noise model below is still fitted on the positions alone.
 4. Noise by maximum likelihood (``survey.smooth.fit_noise``) on up to three stretches of at most
    ``fit_fixes`` fixes, horizontal and vertical separately: snap density, white variance and a
    Gauss-Markov wander (``wander_tau_s``). With per-fix accuracy, accuracy^2 (vertical:
@@ -73,6 +82,9 @@ DEFAULTS = {
     "station_chunk": 100_000,
     "grade_window_scales": 4.0,
     "refit_off_plane": True,
+    "use_velocity": True,
+    "velocity_sigma_mps": 0.15,
+    "velocity_min_speed_mps": 0.5,
 }
 
 
@@ -136,13 +148,18 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, s
         return _profile_from_fused(track, frame, step_m, smoothed, has_height, cfg, messages)
 
     # --- stretches: one per segment, with a strictly increasing parameter --------------------
+    vel = receiver_velocity(track, frame, cfg) if has_time else None
+    vel_of: dict[int, np.ndarray] = {}
     stretches = []
     seg_ids = track.segment[ok]
     idx_ok = np.flatnonzero(ok)
     for sid in _ordered_unique(seg_ids):
         idx = idx_ok[seg_ids == sid]
         t = track.time_s[idx] if has_time else _chord_chainage(enu[idx])
-        t, y, bh, bv = _merge_repeats(t, enu[idx], base_h[idx], base_v[idx])
+        data = enu[idx] if vel is None else np.column_stack([enu[idx], vel[idx]])
+        t, y, bh, bv = _merge_repeats(t, data, base_h[idx], base_v[idx])
+        if vel is not None:
+            y, vel_of[int(sid)] = y[:, :3], y[:, 3:]
         if len(t) < cfg["min_fixes"] or np.ptp(y[:, 0]) + np.ptp(y[:, 1]) == 0 or t[-1] <= t[0]:
             messages.append(f"segment {sid}: {len(t)} usable distinct fixes, too few to measure; skipped")
             continue
@@ -166,17 +183,26 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, s
         messages.append("too few heights to smooth; heights ignored")
 
     # --- smooth each segment, place stations ---------------------------------------------------
+    vel_var = float(cfg["velocity_sigma_mps"]) ** 2
+
     def smoothed_stretches():
         for sid, t, y, bh, bv, scr_h, scr_v in stretches:
+            v = vel_of.get(sid)
             yield sid, t[0], t[-1], smooth_stretch(t, y, bh, bv, model_h, model_v if has_height else None, scr_h,
                                                    scr_v, robust_iterations=cfg["robust_iterations"],
                                                    twice=cfg["speed_bias"] == "twice",
-                                                   grade_window_scales=cfg["grade_window_scales"] or None)
+                                                   grade_window_scales=cfg["grade_window_scales"] or None,
+                                                   vel_en=v, vel_var=None if v is None else np.full(len(t), vel_var))
 
     cols, knots, lengths = _place_stations(smoothed_stretches(), step_m, has_time, has_height, cfg, messages)
     if cols is None:
         return empty_profile(track, frame, step_m, cfg, messages)
     settings_out = _settings(cfg, step_m, model_h, model_v if has_height else None, use_acc, has_time, knots)
+    if vel is not None:
+        used = int(np.sum(np.isfinite(vel[ok]).all(axis=1)))
+        settings_out["receiver_velocity"] = (f"{used} fixes' speed and course over ground measured the "
+                                             f"velocity, 1-sigma {cfg['velocity_sigma_mps']:g} m/s per axis")
+        messages.append(f"speed and course over ground of {used} fixes used as velocity measurements")
     return _finish(track, frame, step_m, cols, has_height, settings_out, lengths, messages)
 
 
@@ -293,13 +319,29 @@ def _merge_repeats(t, y, bh, bv):
     order = np.argsort(t, kind="stable")
     t, y, bh, bv = t[order], y[order], bh[order], bv[order]
     tu, inv, cnt = np.unique(t, return_inverse=True, return_counts=True)
-    ym = np.column_stack([np.bincount(inv, weights=np.nan_to_num(y[:, k]), minlength=len(tu)) for k in range(3)])
-    fin = np.column_stack([np.bincount(inv, weights=np.isfinite(y[:, k]).astype(float), minlength=len(tu)) for k in range(3)])
+    cols = range(y.shape[1])
+    ym = np.column_stack([np.bincount(inv, weights=np.nan_to_num(y[:, k]), minlength=len(tu)) for k in cols])
+    fin = np.column_stack([np.bincount(inv, weights=np.isfinite(y[:, k]).astype(float), minlength=len(tu)) for k in cols])
     with np.errstate(invalid="ignore", divide="ignore"):
         ym = np.where(fin > 0, ym / fin, np.nan)
     first = np.zeros(len(tu), int)
     first[inv[::-1]] = np.arange(len(t))[::-1]
     return tu, ym, bh[first], bv[first]
+
+
+def receiver_velocity(track: Track, frame, cfg: dict) -> np.ndarray | None:
+    """(n, 2) horizontal velocity (east, north) in the frame, m/s, from the log's speed and true
+    course over ground (``LocalFrame.ground_velocity``: meridian convergence and grid scale), NaN
+    where either is missing or the speed is below ``velocity_min_speed_mps`` (a receiver's
+    course is unreliable or frozen there, common practice); None when the log has neither, or
+    ``use_velocity`` is off."""
+    if not cfg["use_velocity"] or track.speed_mps is None or track.course_deg is None:
+        return None
+    speed = np.where(track.speed_mps >= cfg["velocity_min_speed_mps"], track.speed_mps, np.nan)
+    if not np.isfinite(speed).any() or not np.isfinite(track.course_deg).any():
+        return None
+    ve, vn = frame.ground_velocity(track.lat_deg, track.lon_deg, speed, track.course_deg)
+    return np.column_stack([ve, vn])
 
 
 def _fit_models(stretches, use_acc, has_height, cfg):

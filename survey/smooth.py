@@ -54,6 +54,13 @@ RTK 1); it is a judgement, not a published constant. A heavy-tailed (Student-t) 
 fitted by re-weighting from the posterior mean was tried and did not help: the posterior mean's
 snap increments are shrunk alike on turns and straights, so the weights do not find the turns.
 
+Receiver velocity
+-----------------
+A receiver's Doppler velocity (speed and course over ground) at a fix measures the path's
+velocity there: the derivative of the fix's Hermite row (``_vtables``; the wander, a slow position
+error, is not in it), added to the same banded system with its own variance (``build_system``
+``vel``), re-weighted like the positions and drawn like them in ``noise_draws``.
+
 Heights on the local grade plane
 --------------------------------
 Heights are smoothed more strongly than plan position (their own, noisier, fit). On a path in a
@@ -276,6 +283,23 @@ def _tables(dim: int):
     return _TABLES[dim]
 
 
+_VTABLES: dict[int, tuple[FloatArray, FloatArray]] = {}
+
+
+def _vtables(dim: int):
+    """(Bv (2d, 8), Cv (15, 2d*2d)) Legendre tables of the velocity rows: the sigma-derivative of
+    every measurement row of the path states (a receiver's Doppler velocity measures the path's
+    velocity; the wander, a slow position error, does not enter it: its rows are 0)."""
+    if dim not in _VTABLES:
+        P = np.polynomial.Polynomial
+        rows = _row_polys(dim)
+        drows = [r.deriv() if (i % dim) < N_PATH else P([0.0]) for i, r in enumerate(rows)]
+        Bv = np.array([_leg(r, 8) for r in drows])
+        Cv = np.array([[_leg(ra * rb, N_LEG) for rb in drows] for ra in drows])
+        _VTABLES[dim] = (Bv, Cv.reshape(-1, N_LEG).T.copy())
+    return _VTABLES[dim]
+
+
 # --------------------------------------------------------------------------------------------
 # The banded system
 # --------------------------------------------------------------------------------------------
@@ -451,13 +475,20 @@ class AxisSystem:
     design: Design
     model: NoiseModel
     wander_gain: tuple | None = None  # cached by noise_draws
+    #: Receiver velocity measurements (``build_system`` ``vel``), per knot-interval units:
+    #: weights (n,) = 1 / variance (0 = none) and values (n, A) = velocity x h.
+    wv: FloatArray | None = None
+    yv: FloatArray | None = None
 
 
-def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, pos_sd: float = 1e4) -> AxisSystem:
+def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, pos_sd: float = 1e4,
+                 vel: FloatArray | None = None, vel_var: FloatArray | None = None) -> AxisSystem:
     """Posterior precision and right-hand sides for the axes of one group.
 
     ``y`` (n,) or (n, A) positions with the offset removed (NaN = no measurement); ``var`` (n,)
-    measurement variances in m^2 (inf = no measurement), the same for every axis.
+    measurement variances in m^2 (inf = no measurement), the same for every axis. ``vel`` (n, A)
+    receiver velocities at the same fixes, m/s (NaN = none), with variances ``vel_var`` (n,),
+    (m/s)^2: each measures the path's velocity (``_vtables``), not the wander.
 
     The data term sum_i w_i r_i r_i^T of a knot interval is assembled from 15 weighted Legendre
     moments of the fixes' interval coordinates (each row r_i is a polynomial of degree <= 7 in
@@ -496,11 +527,37 @@ def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, 
         for j in range(d):  # off-diagonal block between knots k and k+1
             ab[u + i - j - d, d + j :: d] = gT[i, d + j] + Bo[..., i, j]
     s = _interval_sums(design, w[:, None] * yy, 8) @ B.T  # (K-1, A, 2d)
+    wv = yv = None
+    if vel is not None:
+        wv, yv = _velocity_data(design, vel, vel_var)
+        Bv, Cv = _vtables(d)
+        Cv3 = Cv.reshape(N_LEG, 2 * d, 2 * d)
+        gv = (Cv3.transpose(1, 2, 0).reshape(4 * d * d, N_LEG) @ _interval_sums(design, wv, N_LEG).T).reshape(
+            2 * d, 2 * d, K - 1)
+        for i in range(d):  # add the velocity rows' precision to the band filled above
+            for j in range(i, d):
+                ab[u + i - j, j : (K - 1) * d : d] += gv[i, j]
+                ab[u + i - j, d + j :: d] += gv[d + i, d + j]
+            for j in range(d):
+                ab[u + i - j - d, d + j :: d] += gv[i, d + j]
+        s = s + _interval_sums(design, wv[:, None] * yv, 8) @ Bv.T
     rhs = np.zeros((K, d, y.shape[1]))
     rhs[:-1] += np.swapaxes(s[:, :, :d], 1, 2)
     rhs[1:] += np.swapaxes(s[:, :, d:], 1, 2)
     logdet_prior = float(np.sum(np.log(p0)) + (K - 1) * logdet_q)
-    return AxisSystem(ab, rhs.reshape(K * d, -1), d, F, Qinv, logdet_prior, p0, w, yy, design, m)
+    return AxisSystem(ab, rhs.reshape(K * d, -1), d, F, Qinv, logdet_prior, p0, w, yy, design, m, wv=wv, yv=yv)
+
+
+def _velocity_data(design: Design, vel: FloatArray, vel_var: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """Weights (n,) and values (n, A) of velocity measurements in knot-interval units (time unit
+    h: a velocity v m/s is v h per interval, its variance var h^2); 0 weight where absent."""
+    vel = np.asarray(vel, float)
+    vel = vel[:, None] if vel.ndim == 1 else vel
+    var = np.asarray(vel_var, float)
+    ok = np.all(np.isfinite(vel), axis=1) & np.isfinite(var) & (var > 0)
+    h = design.h
+    wv = np.where(ok, 1.0 / (np.where(ok, var, 1.0) * h * h), 0.0)
+    return wv, np.where(ok[:, None], vel * h, 0.0)
 
 
 def factor(system: AxisSystem) -> FloatArray:
@@ -521,10 +578,16 @@ def _interval_legendre(system: AxisSystem, x: FloatArray) -> FloatArray:
     return np.swapaxes(both, 1, 2) @ B
 
 
-def fitted(system: AxisSystem, x: FloatArray) -> FloatArray:
+def fitted(system: AxisSystem, x: FloatArray, velocity: bool = False) -> FloatArray:
     """Model position (path + wander) at every fix, (n, A): the Legendre series of each fix's
-    interval, summed over blocks of ``_SUM_BLOCK`` fixes (temporaries stay in cache)."""
-    coef = np.ascontiguousarray(np.moveaxis(_interval_legendre(system, x), 2, 0))  # (8, K-1, A)
+    interval, summed over blocks of ``_SUM_BLOCK`` fixes (temporaries stay in cache). With
+    ``velocity`` the path's velocity there instead, m/s."""
+    if velocity:
+        both = np.concatenate((x[:-1], x[1:]), axis=1)
+        coef = np.ascontiguousarray(np.moveaxis(np.swapaxes(both, 1, 2) @ _vtables(system.dim)[0], 2, 0))
+        coef /= system.design.h
+    else:
+        coef = np.ascontiguousarray(np.moveaxis(_interval_legendre(system, x), 2, 0))  # (8, K-1, A)
     k, xs = system.design.interval, system.design.x
     out = np.empty((len(k), coef.shape[2]))
     for a in range(0, len(k), _SUM_BLOCK):
@@ -548,18 +611,25 @@ def resmooth_path(system: AxisSystem, U: FloatArray, x: FloatArray) -> FloatArra
     xp = x.copy()
     if d > N_PATH:
         xp[:, N_PATH:, :] = 0.0
-    return solve_columns(system, U, fitted(system, xp))
+    yv = fitted(system, xp, velocity=True) if system.wv is not None else None
+    return solve_columns(system, U, fitted(system, xp), yv)
 
 
-def solve_columns(system: AxisSystem, U: FloatArray, y: FloatArray) -> FloatArray:
+def solve_columns(system: AxisSystem, U: FloatArray, y: FloatArray, yv: FloatArray | None = None) -> FloatArray:
     """Knot states (K, d, c) of the same linear smoother (fixes, weights, factor) applied to other
     data ``y`` (n, c) at the same fixes: only the right-hand side changes. Fixes left out of the
-    system (weight 0) are left out here too."""
+    system (weight 0) are left out here too. A system with velocity measurements needs the
+    velocities ``yv`` (n, c), m/s, of the other data too."""
     d = system.dim
     B = _tables(d)[0]
     yw = np.where(system.w[:, None] > 0, y, 0.0)
     yw *= system.w[:, None]
     s = np.swapaxes(_interval_sums(system.design, yw, 8) @ B.T, 1, 2)  # (K-1, 2d, c)
+    if system.wv is not None:
+        if yv is None:
+            raise ValueError("this smoother takes velocity measurements: give the data's velocities")
+        vw = np.where(system.wv[:, None] > 0, yv * system.design.h, 0.0) * system.wv[:, None]
+        s = s + np.swapaxes(_interval_sums(system.design, vw, 8) @ _vtables(d)[0].T, 1, 2)
     K = system.design.n_knots
     rhs = np.zeros((K, d, y.shape[1]))
     rhs[:-1] += s[:, :d]
@@ -652,10 +722,19 @@ def noise_draws(
             m = _interval_sums(system.design, system.w, N_LEG)
             system.wander_gain = (m @ W0, m @ W1)
         g0, g1 = (g[:, :, None] for g in system.wander_gain)  # (K-1, 2d, 1)
+    sums_v = None
+    if system.wv is not None:  # the receiver's velocity noise: variance 1 / weight, white
+        ev = rng.standard_normal((n, cols))
+        ev *= np.sqrt(system.wv)[:, None]
+        sums_v = _interval_sums(system.design, ev, 8)
+        del ev
+        Bv = _vtables(d)[0]
     rhs = np.zeros((K, d, cols))
     for a in range(0, K - 1, _SUM_BLOCK):
         c = min(K - 1, a + _SUM_BLOCK)
         v = np.swapaxes(sums[a:c] @ B.T, 1, 2)  # (m, 2d, cols)
+        if sums_v is not None:
+            v = v + np.swapaxes(sums_v[a:c] @ Bv.T, 1, 2)
         if b is not None:
             v = v + g0[a:c] * b[a:c] + g1[a:c] * b[a + 1 : c + 1]
         rhs[a:c] += v[:, :d]
@@ -989,9 +1068,11 @@ def grade_plane_correction(out: FloatArray, en_v: FloatArray, grade: FloatArray)
     out[..., 2, :] += grade[:, 0, None] * d[..., 0, :] + grade[:, 1, None] * d[..., 1, :]
 
 
-def _smooth_group(Y: FloatArray, var: FloatArray, w: FloatArray, m: NoiseModel, design: Design):
+def _smooth_group(Y: FloatArray, var: FloatArray, w: FloatArray, m: NoiseModel, design: Design,
+                  vel: FloatArray | None = None, vel_var: FloatArray | None = None, w_vel: FloatArray | None = None):
     v = np.where(w > 0, var / np.maximum(w, 1e-12), np.inf)
-    sysm = build_system(design, Y, v, m)
+    vv = None if vel is None else np.where(w_vel > 0, vel_var / np.maximum(w_vel, 1e-12), np.inf)
+    sysm = build_system(design, Y, v, m, vel=vel, vel_var=vv)
     U = factor(sysm)
     x = solve_mean(sysm, U)
     return sysm, U, x, fitted(sysm, x)
@@ -1013,8 +1094,18 @@ def smooth_stretch(
     weight_share: float = 1e-4,
     twice: bool = False,
     grade_window_scales: float | None = 4.0,
+    vel_en: FloatArray | None = None,
+    vel_var: FloatArray | None = None,
 ) -> Smoothed:
     """Smooth one stretch of fixes (strictly increasing ``t``) on all three axes.
+
+    ``vel_en`` (n, 2): the receiver's horizontal velocity (Doppler; east, north in m/s, NaN
+    where none) with variances ``vel_var`` (n,), (m/s)^2, measured by the horizontal smoother
+    beside the positions and re-weighted like them (Huber on the 2D standardised residual). The
+    velocity does not carry the slow wander of the positions, so it holds the shape of tight
+    turns that position fixes alone leave to the wander. The local grade plane is then fitted on
+    east/north/up passed alike through the horizontal smoother on the positions alone (one more
+    solve: the smoother that also measures velocity has no heights' velocity to carry).
 
     ``model_v`` None means no heights. ``screened_*`` (from ``screen_outliers``) start with
     weight 0. Fixes are then re-weighted up to ``robust_iterations`` times with the Huber weight
@@ -1041,6 +1132,10 @@ def smooth_stretch(
     # data columns per group: with the grade plane, up carries east/north through the vertical
     # smoother and east/north carry up through the horizontal one (for the local grade)
     cols = [[0, 1, 2], [2, 0, 1]] if plane else [[0, 1], [2]]
+    has_vel = vel_en is not None and bool(np.isfinite(vel_en).all(axis=1).any())
+    if has_vel and plane:
+        cols[0] = [0, 1]
+    w_vel = np.isfinite(vel_en).all(axis=1).astype(float) if has_vel else None
     Yc = Y
     if plane:  # a missing height must not drop a fix from the horizontal group: interpolate it
         z_ok = np.isfinite(Y[:, 2])
@@ -1063,7 +1158,8 @@ def smooth_stretch(
         for g, (axes, m, var, design) in enumerate(prepared):
             if redo[g]:
                 w = w_h if axes[0] < 2 else w_v
-                results[g] = _smooth_group(Y[:, list(axes)], var, w, m, design)
+                extra = (vel_en, vel_var, w_vel) if has_vel and axes[0] < 2 else ()
+                results[g] = _smooth_group(Y[:, list(axes)], var, w, m, design, *extra)
         if it == robust_iterations:
             break
         res_h = Y[:, :2] - results[0][3][:, :2]
@@ -1071,6 +1167,14 @@ def smooth_stretch(
         new_h = _huber(np.where(np.isfinite(dh), dh, 0.0), huber_c, reject_sigma)
         redo = [_weights_moved(new_h, w_h, weight_tol, weight_share)]
         w_h = new_h
+        if has_vel:  # the velocities' own robust weights (2D standardised residual)
+            sysm, _, x, _ = results[0]
+            rv = vel_en - fitted(sysm, x, velocity=True)
+            dvel = np.sqrt(np.sum(rv**2, axis=1) / (2.0 * vel_var))
+            fin = np.isfinite(dvel)
+            new_vel = np.where(fin, _huber(np.where(fin, dvel, 0.0), huber_c, reject_sigma), 0.0)
+            redo[0] = redo[0] or _weights_moved(new_vel, w_vel, weight_tol, weight_share)
+            w_vel = new_vel
         if model_v is not None:
             dv = np.abs(Y[:, 2] - results[1][3][:, 0]) / np.sqrt(prepared[1][2])
             new_v = _huber(np.where(np.isfinite(dv), dv, 0.0), huber_c, reject_sigma)
@@ -1095,7 +1199,14 @@ def smooth_stretch(
         gh, gv = groups
         wv = gv.white_var[np.isfinite(gv.white_var)]
         scale = gv.model.smoothing_scale_s(float(np.median(wv)), interval)
-        gh.grade = local_grade(gh.states[:, [2, 0, 1]], grade_window_scales * scale / gh.h)
+        if has_vel:  # up, east, north alike through the horizontal smoother on positions only
+            axes, m, var, design = prepared[0]
+            sysm, U, x, _ = _smooth_group(Yc[:, [2, 0, 1]], var, w_h, m, design)
+            conv = design.h ** -np.arange(N_PATH)
+            alike = np.swapaxes(x[:, :N_PATH, :], 1, 2) * conv
+        else:
+            alike = gh.states[:, [2, 0, 1]]
+        gh.grade = local_grade(alike, grade_window_scales * scale / gh.h)
     if twice:
         for g, (sysm, U, x, _) in zip(groups, results):
             conv = g.h ** -np.arange(N_PATH)
