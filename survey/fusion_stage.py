@@ -26,6 +26,7 @@ def fuse_loaded(
     imu_accel_unit: str | None = None,
     imu_gyro_unit: str | None = None,
     clock_offset_s: float | None = None,
+    use_velocity: bool = True,
 ) -> FusedPath:
     """Fuse an IMU CSV log with a loaded GNSS log.
 
@@ -37,6 +38,8 @@ def fuse_loaded(
         ``"flu"`` (x forward, y left, z up) or ``"frd"`` (forward, right, down).
     clock_offset_s
         Remaining GNSS-IMU clock offset, s; ``None`` estimates it from the data.
+    use_velocity
+        False: leave the log's speed and course over ground out of the fusion (positions only).
     """
     imu = read_imu_csv(imu_path, time_offset_s=imu_time_offset_s, axes=imu_axes,
                        accel_unit=imu_accel_unit, gyro_unit=imu_gyro_unit)
@@ -47,7 +50,7 @@ def fuse_loaded(
     keep = np.isfinite(enu[:, 0])
     # speed and course over ground, when the log has them, become GNSS velocity updates; the
     # course is from true north, so it is turned into the frame's own north first
-    speed, course = frame_speed_course(loaded)
+    speed, course = frame_speed_course(loaded) if use_velocity else (None, None)
     return fuse(track.time_s[keep], enu[keep],
                 None if track.accuracy_m is None else track.accuracy_m[keep],
                 imu, time_offset_s=clock_offset_s,

@@ -126,6 +126,7 @@ def compute_profile(
 
         if not loaded.track.has_time:
             raise InputError(loaded.track.source.path, "an IMU log can only be fused with a GNSS log that has times")
-        fused = fuse_loaded(loaded, imu, imu_time_offset_s, imu_axes, imu_accel_unit, imu_gyro_unit)
+        fused = fuse_loaded(loaded, imu, imu_time_offset_s, imu_axes, imu_accel_unit, imu_gyro_unit,
+                            use_velocity=settings.get("use_velocity") is not False)
         profile = build_profile(loaded.track, loaded.enu_m, loaded.frame, step_m=step_m, smoothed=fused, **settings)
         return add_imu_fields(profile, fused)

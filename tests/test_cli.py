@@ -143,3 +143,14 @@ def test_the_computing_package_never_imports_the_interface():
                 names = [node.module]
             offenders += [f"{path.name}: {n}" for n in names if n == "tui" or n.startswith("tui.")]
     assert offenders == []
+
+
+def test_profile_measures_speed_and_course_unless_positions_only(tmp_path):
+    # The demo van's NMEA log reports speed and course over ground (RMC): used by default, left
+    # out with --positions-only.
+    van = Path(__file__).resolve().parents[1] / "demo_tracks" / "van_route_tunnel.nmea"
+    both, only = tmp_path / "both.csv", tmp_path / "only.csv"
+    assert main(["profile", str(van), "-o", str(both)]) == 0
+    assert main(["profile", str(van), "--positions-only", "-o", str(only)]) == 0
+    assert "receiver_velocity=" in both.read_text()
+    assert "receiver_velocity=" not in only.read_text()

@@ -101,3 +101,11 @@ def test_curvature_sd_is_positive_wherever_curvature_is_given(fused_profile):
     k, sd = fused_profile["curvature_per_m"], fused_profile["curvature_sd_per_m"]
     given = np.isfinite(k)
     assert given.any() and np.all(sd[given] > 0)
+
+
+def test_positions_only_leaves_speed_and_course_out_of_the_fusion(tmp_path):
+    # The demo van's RMC sentences carry speed and course; --positions-only must keep them out.
+    out = tmp_path / "van.csv"
+    assert main(["profile", str(VAN), "--imu", str(VAN_IMU), "--positions-only", "-o", str(out)]) == 0
+    header = "\n".join(line for line in out.read_text().splitlines() if line.startswith("#"))
+    assert "fusion_velocity_updates=0" in header

@@ -69,13 +69,23 @@ def add_imu_arguments(parser: argparse.ArgumentParser) -> None:
     )
     group.add_argument("--imu-accel-unit", choices=("mps2", "g"), help="unit of accelerometer columns without a suffix")
     group.add_argument("--imu-gyro-unit", choices=("radps", "dps"), help="unit of gyro columns without a suffix")
+    speed = parser.add_argument_group("speed and course over ground")
+    speed.add_argument(
+        "--positions-only",
+        action="store_true",
+        help="ignore the log's speed and course over ground (by default they are measured beside "
+        "the positions when the log has them)",
+    )
 
 
 def imu_kwargs(args: argparse.Namespace) -> dict:
-    """``run_profile`` keyword arguments for the IMU options (empty without ``--imu``)."""
+    """``run_profile`` keyword arguments for the IMU options (none without ``--imu``) and
+    ``--positions-only``."""
+    extra = {"use_velocity": False} if getattr(args, "positions_only", False) else {}
     if not getattr(args, "imu", None):
-        return {}
+        return extra
     return {
+        **extra,
         "imu": args.imu,
         "imu_time_offset_s": args.imu_time_offset,
         "imu_axes": args.imu_axes,
