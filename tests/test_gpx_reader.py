@@ -15,6 +15,7 @@ import gpxpy
 import numpy as np
 import pytest
 
+from survey.errors import InputError
 from survey.readers import read_log
 from survey.readers.gpx import read_gpx
 from survey.track import HEIGHT_MSL
@@ -186,3 +187,35 @@ def test_bulk_and_safe_paths_record_which_one_read_the_file():
     assert read("gpx10_sample.gpx", "safe").source.reader == "gpx-safe"
     # the extension inside a point sends the whole file to the safe path
     assert read("schema11_sample.gpx").source.reader == "gpx-safe"
+
+
+GPX10 = "http://www.topografix.com/GPX/1/0"
+
+
+@pytest.mark.parametrize("mode", MODES)
+def test_gpx_1_0_speed_and_course_are_read_as_gpxpy_reads_them(mode):
+    # GPX 1.0 schema: trkpt children course (degrees, true) and speed (m/s). Oracle: gpxpy.
+    data = (DATA / "gpx10_sample.gpx").read_bytes()
+    t = read_gpx("gpx10_sample.gpx", data, mode=mode)
+    pts = [p for trk in gpxpy.parse(data.decode()).tracks for seg in trk.segments for p in seg.points]
+    np.testing.assert_array_equal(t.speed_mps, [np.nan if p.speed is None else p.speed for p in pts])
+    np.testing.assert_array_equal(t.course_deg, [np.nan if p.course is None else p.course for p in pts])
+    assert t.source.reader == ("gpx-bulk" if mode == "auto" else "gpx-safe")
+
+
+def test_gpx_1_0_speed_before_course_is_still_read():
+    # Out of schema order: the bulk path must not drop them (it hands the file to the safe path).
+    doc = gpx_doc('<trkpt lat="1.5" lon="2.5"><time>2021-01-02T03:04:05Z</time><speed>4.5</speed>'
+                  '<course>270</course></trkpt>', ns=GPX10, version="1.0")
+    t = read_gpx("order.gpx", doc.encode())
+    assert t.speed_mps[0] == 4.5 and t.course_deg[0] == 270.0
+
+
+@pytest.mark.parametrize("child, message", [("<speed>-2</speed>", "speed -2 is negative"),
+                                            ("<course>400</course>", "course 400 is out of range")])
+def test_gpx_1_0_impossible_speed_or_course_names_the_point(child, message):
+    doc = gpx_doc(f'<trkpt lat="1.5" lon="2.5"><time>2021-01-02T03:04:05Z</time>{child}</trkpt>', ns=GPX10,
+                  version="1.0")
+    with pytest.raises(InputError) as err:
+        read_gpx("bad.gpx", doc.encode())
+    assert message in str(err.value) and "trkpt 1" in str(err.value)

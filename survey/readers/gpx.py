@@ -114,4 +114,6 @@ def _to_track(path: str, fx: Fixes, reader: str) -> Track:
         notes=tuple(fx.notes),
         hdop=fx.hdop,
         satellites=fx.satellites,
+        speed_mps=fx.speed_mps,
+        course_deg=fx.course_deg,
     )

@@ -44,7 +44,7 @@ _TIME = rb"<time>" + _WS + rb"([0-9T:-]{19}[.0-9]{0,10}[-+Z0-9:]{0,6})" + _WS + 
 _BEFORE_SAT = (b"course", b"speed", b"magvar", b"geoidheight", b"name", b"cmt", b"desc", b"src",
                b"url", b"urlname", b"sym", b"type", b"fix")
 _AFTER_HDOP = (b"vdop", b"pdop", b"ageofdgpsdata", b"dgpsid")
-_FIELDS = ("lat", "lon", "ele", "time", "sat", "hdop")
+_FIELDS = ("lat", "lon", "ele", "time", "sat", "hdop", "course", "speed")
 
 
 def _plain(names) -> bytes:
@@ -96,7 +96,9 @@ class _Pattern:
             body += opt(rb"<ele>" + grp(_NUM, "ele") + rb"</ele>" + _WS, ele)
         if tim is None or tim:
             body += opt(grp(_TIME, "time"), tim)
-        if shape is None:
+        if shape is None:  # GPX 1.0 course and speed, in schema order, then other plain children
+            body += opt(rb"<course>" + grp(_NUM, "course") + rb"</course>" + _WS, None)
+            body += opt(rb"<speed>" + grp(_NUM, "speed") + rb"</speed>" + _WS, None)
             body += _plain(_BEFORE_SAT)
         if sat is None or sat:
             body += opt(rb"<sat>" + grp(_NUM, "sat") + rb"</sat>" + _WS, sat)
@@ -182,6 +184,14 @@ def read_fast(data: bytes) -> Fixes | None:
     lat, lon = cols["lat"], cols["lon"]
     if not ((np.abs(lat) <= 90.0).all() and (np.abs(lon) <= 180.0).all()):
         return None
+    speed, course = cols["speed"], cols["course"]
+    got_speed, got_course = np.isfinite(speed), np.isfinite(course)
+    # every <speed>/<course> in the file must be a point's, captured in schema order (a point
+    # with them in another order, or any elsewhere, goes to the safe path); values in range
+    if data.count(b"<speed>") != got_speed.sum() or data.count(b"<course>") != got_course.sum():
+        return None
+    if (speed[got_speed] < 0).any() or ((course[got_course] < 0) | (course[got_course] > 360)).any():
+        return None
     notes = []
     if cols["naive"]:
         notes.append(f"{cols['naive']} time stamps had no UTC offset; read as UTC")
@@ -195,6 +205,8 @@ def read_fast(data: bytes) -> Fixes | None:
         hdop=cols["hdop"] if cols["has_hdop"] else None,
         satellites=cols["sat"] if cols["has_sat"] else None,
         notes=notes,
+        speed_mps=speed if got_speed.any() else None,
+        course_deg=course % 360.0 if got_course.any() else None,
     )
 
 
@@ -299,7 +311,7 @@ def _bulk_columns(data: bytes, pat: _Pattern, n: int) -> dict | None:
 
     ``None`` unless exactly ``n`` points match and every captured value converts.
     """
-    parts: dict[str, list] = {k: [] for k in ("lat", "lon", "ele", "time", "sat", "hdop")}
+    parts: dict[str, list] = {k: [] for k in ("lat", "lon", "ele", "time", "sat", "hdop", "course", "speed")}
     naive = 0
     has_sat = has_hdop = False
     count = 0
@@ -319,7 +331,7 @@ def _bulk_columns(data: bytes, pat: _Pattern, n: int) -> dict | None:
                 idx = g[key]
                 col = c[idx[0]] if len(idx) == 1 else [a or b for a, b in zip(c[idx[0]], c[idx[1]])]
                 parts[key].append(np.fromiter(map(float, col), np.float64, len(col)))
-            for key in ("ele", "sat", "hdop"):
+            for key in ("ele", "sat", "hdop", "course", "speed"):
                 col = c[g[key][0]] if g[key] else None
                 parts[key].append(_optional_numbers(col, len(rows), required=pat.requires(key)))
             if g["time"]:

@@ -66,6 +66,8 @@ class Fixes:
     hdop: np.ndarray | None = None
     satellites: np.ndarray | None = None
     notes: list[str] = field(default_factory=list)
+    speed_mps: np.ndarray | None = None  # GPX 1.0 <speed>, m/s
+    course_deg: np.ndarray | None = None  # GPX 1.0 <course>, degrees from true north
 
     def __len__(self) -> int:
         return len(self.lat_deg)
@@ -286,7 +288,8 @@ def read_safe(path: str, data: bytes) -> Fixes:
 
 
 def _point(path: str, el, kind: str, number: int, ns: str, seg: int) -> tuple:
-    """One point as (lat, lon, ele, time text, hdop, sat, seg, line, number)."""
+    """One point as (lat, lon, ele, time text, hdop, sat, speed, course, seg, line, number);
+    speed (m/s) and course (degrees, true) are GPX 1.0 elements (absent from GPX 1.1)."""
     where = f"line {el.sourceline}, {kind} {number}"
     vals = []
     for attr, limit in (("lat", 90.0), ("lon", 180.0)):
@@ -305,10 +308,10 @@ def _point(path: str, el, kind: str, number: int, ns: str, seg: int) -> tuple:
         tag = ch.tag
         if isinstance(tag, str) and tag.startswith(pre):
             name = tag[len(pre):]
-            if name in ("ele", "time", "hdop", "sat") and name not in found:
+            if name in _POINT_CHILDREN and name not in found:
                 found[name] = "".join(ch.itertext())
     out = [vals[0], vals[1]]
-    for name in ("ele", "time", "hdop", "sat"):
+    for name in _POINT_CHILDREN:
         text = found.get(name)
         if text is None or not text.strip():
             out.append(None)
@@ -321,15 +324,23 @@ def _point(path: str, el, kind: str, number: int, ns: str, seg: int) -> tuple:
             v = parse_number(text)
             if v is None:
                 raise InputError(path, f"{name} {text.strip()[:40]!r} is not a number", where)
+            if name == "speed" and v < 0:
+                raise InputError(path, f"speed {v:g} is negative", where)
+            if name == "course" and not 0.0 <= v <= 360.0:
+                raise InputError(path, f"course {v:g} is out of range [0, 360]", where)
             out.append(v)
     return (*out, seg, el.sourceline, number)
+
+
+#: Point children read, in the order ``_point`` returns them (speed and course: GPX 1.0 only).
+_POINT_CHILDREN = ("ele", "time", "hdop", "sat", "speed", "course")
 
 
 def _assemble(path: str, fmt: str, pts: list, kind: str) -> Fixes:
     n = len(pts)
     if n == 0:
         return Fixes(fmt, *(np.empty(0) for _ in range(4)), np.empty(0, np.int32))
-    lat, lon, ele, tm, hdop, sat, seg, line, number = zip(*pts)
+    lat, lon, ele, tm, hdop, sat, speed, course, seg, line, number = zip(*pts)
     tparts = [t or b"" for t in tm]
     try:
         time_s = gpx_times_to_epoch(tparts)
@@ -356,4 +367,6 @@ def _assemble(path: str, fmt: str, pts: list, kind: str) -> Fixes:
         hdop=col(hdop) if any(v is not None for v in hdop) else None,
         satellites=col(sat) if any(v is not None for v in sat) else None,
         notes=notes + ([] if kind == "trkpt" else ["no track points; read the route points"]),
+        speed_mps=col(speed) if any(v is not None for v in speed) else None,
+        course_deg=col(course) % 360.0 if any(v is not None for v in course) else None,
     )
