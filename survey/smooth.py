@@ -510,10 +510,15 @@ def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, 
     A = F.T @ Qinv @ F
     Bo = -F.T @ Qinv
     p0 = _prior0(m, pos_sd)
-    # only the data-term entries the upper band needs, each one contiguous row (K-1,)
-    C3 = C.reshape(N_LEG, 2 * d, 2 * d)
-    gT = (C3.transpose(1, 2, 0).reshape(4 * d * d, N_LEG) @ _interval_sums(design, w, N_LEG).T).reshape(
-        2 * d, 2 * d, K - 1)
+    # the data term per interval, entry by entry: each one contiguous row (K-1,)
+    gT = _gram_rows(C, _interval_sums(design, w, N_LEG), d)
+    s = _interval_sums(design, w[:, None] * yy, 8) @ B.T  # (K-1, A, 2d)
+    wv = yv = None
+    if vel is not None:  # velocity rows add their own precision and right-hand side
+        wv, yv = _velocity_data(design, vel, vel_var)
+        Bv, Cv = _vtables(d)
+        gT += _gram_rows(Cv, _interval_sums(design, wv, N_LEG), d)
+        s = s + _interval_sums(design, wv[:, None] * yv, 8) @ Bv.T
     ab = np.zeros((u + 1, K * d))
     band = np.empty(K)
     for i in range(d):
@@ -526,26 +531,18 @@ def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, 
             ab[u + i - j, j::d] = band
         for j in range(d):  # off-diagonal block between knots k and k+1
             ab[u + i - j - d, d + j :: d] = gT[i, d + j] + Bo[..., i, j]
-    s = _interval_sums(design, w[:, None] * yy, 8) @ B.T  # (K-1, A, 2d)
-    wv = yv = None
-    if vel is not None:
-        wv, yv = _velocity_data(design, vel, vel_var)
-        Bv, Cv = _vtables(d)
-        Cv3 = Cv.reshape(N_LEG, 2 * d, 2 * d)
-        gv = (Cv3.transpose(1, 2, 0).reshape(4 * d * d, N_LEG) @ _interval_sums(design, wv, N_LEG).T).reshape(
-            2 * d, 2 * d, K - 1)
-        for i in range(d):  # add the velocity rows' precision to the band filled above
-            for j in range(i, d):
-                ab[u + i - j, j : (K - 1) * d : d] += gv[i, j]
-                ab[u + i - j, d + j :: d] += gv[d + i, d + j]
-            for j in range(d):
-                ab[u + i - j - d, d + j :: d] += gv[i, d + j]
-        s = s + _interval_sums(design, wv[:, None] * yv, 8) @ Bv.T
     rhs = np.zeros((K, d, y.shape[1]))
     rhs[:-1] += np.swapaxes(s[:, :, :d], 1, 2)
     rhs[1:] += np.swapaxes(s[:, :, d:], 1, 2)
     logdet_prior = float(np.sum(np.log(p0)) + (K - 1) * logdet_q)
     return AxisSystem(ab, rhs.reshape(K * d, -1), d, F, Qinv, logdet_prior, p0, w, yy, design, m, wv=wv, yv=yv)
+
+
+def _gram_rows(C: FloatArray, moments: FloatArray, d: int) -> FloatArray:
+    """(2d, 2d, K-1) data-term entries of every knot interval: Legendre product table ``C``
+    (15, 4 d^2) times the interval moments (K-1, 15), laid out entry by entry."""
+    C3 = C.reshape(N_LEG, 2 * d, 2 * d)
+    return (C3.transpose(1, 2, 0).reshape(4 * d * d, N_LEG) @ moments.T).reshape(2 * d, 2 * d, -1)
 
 
 def _velocity_data(design: Design, vel: FloatArray, vel_var: FloatArray) -> tuple[FloatArray, FloatArray]:
@@ -570,10 +567,11 @@ def solve_mean(system: AxisSystem, U: FloatArray) -> FloatArray:
     return cho_solve_banded((U, False), system.rhs, check_finite=False).reshape(-1, system.dim, system.rhs.shape[1])
 
 
-def _interval_legendre(system: AxisSystem, x: FloatArray) -> FloatArray:
-    """(K-1, A, 8) Legendre coefficients of the model position (path + wander) per interval."""
+def _interval_legendre(system: AxisSystem, x: FloatArray, velocity: bool = False) -> FloatArray:
+    """(K-1, A, 8) Legendre coefficients of the model position (path + wander) per interval, or
+    with ``velocity`` of the path's velocity in knot-interval units (``_vtables``)."""
     d = system.dim
-    B = _tables(d)[0]
+    B = _vtables(d)[0] if velocity else _tables(d)[0]
     both = np.concatenate((x[:-1], x[1:]), axis=1)  # (K-1, 2d, A)
     return np.swapaxes(both, 1, 2) @ B
 
@@ -582,12 +580,9 @@ def fitted(system: AxisSystem, x: FloatArray, velocity: bool = False) -> FloatAr
     """Model position (path + wander) at every fix, (n, A): the Legendre series of each fix's
     interval, summed over blocks of ``_SUM_BLOCK`` fixes (temporaries stay in cache). With
     ``velocity`` the path's velocity there instead, m/s."""
+    coef = np.ascontiguousarray(np.moveaxis(_interval_legendre(system, x, velocity), 2, 0))  # (8, K-1, A)
     if velocity:
-        both = np.concatenate((x[:-1], x[1:]), axis=1)
-        coef = np.ascontiguousarray(np.moveaxis(np.swapaxes(both, 1, 2) @ _vtables(system.dim)[0], 2, 0))
-        coef /= system.design.h
-    else:
-        coef = np.ascontiguousarray(np.moveaxis(_interval_legendre(system, x), 2, 0))  # (8, K-1, A)
+        coef /= system.design.h  # per knot interval -> per second
     k, xs = system.design.interval, system.design.x
     out = np.empty((len(k), coef.shape[2]))
     for a in range(0, len(k), _SUM_BLOCK):
