@@ -232,3 +232,49 @@ def test_point_shaped_text_outside_a_trkseg_is_not_read(where):
     t = read_gpx("p.gpx", text.encode())
     np.testing.assert_array_equal(t.lat_deg, [5.0])
     assert t.source.reader == "gpx-safe"
+
+
+_TWO_PROCESS_CHECK = """
+import sys
+import numpy as np
+import gpxpy
+import survey.readers.gpx_fast as fast
+from survey.readers.gpx import read_gpx
+
+data = open(sys.argv[1], "rb").read()
+fast.CHUNK_BYTES, fast.PARALLEL_MIN_BYTES = 200, 0
+taken = []
+real = fast._in_two_processes
+fast._in_two_processes = lambda *a: taken.append(real(*a)) or taken[-1]
+two = read_gpx("two.gpx", data, mode="bulk")
+assert taken and taken[0] is not None and len(taken[0]) == 2, "the second process was not used"
+fast.PARALLEL_MIN_BYTES = 1 << 60
+one = read_gpx("one.gpx", data, mode="bulk")
+pts = [p for t in gpxpy.parse(data.decode()).tracks for s in t.segments for p in s.points]
+np.testing.assert_array_equal(two.lat_deg, [p.latitude for p in pts])
+np.testing.assert_array_equal(two.height_m, [p.elevation for p in pts])
+for name in ("lat_deg", "lon_deg", "height_m", "time_s", "segment"):
+    np.testing.assert_array_equal(getattr(two, name), getattr(one, name))
+print("ok")
+"""
+
+
+def test_two_process_bulk_read_matches_gpxpy_and_the_one_process_read(tmp_path):
+    # A large file's second half of chunks is read by a forked process; forced here on a small
+    # file (tiny chunks, no size threshold) in a fresh interpreter (the reader only forks when no
+    # other thread is running, and a test session has some). Oracle: gpxpy on the same file, and
+    # the one-process read of the bulk path.
+    import subprocess
+    import sys
+
+    from survey import synthetic as S
+    from survey.frame import LocalFrame
+    from survey.logwrite import gpx_text
+
+    traj = S.switchbacks()  # 217 fixes, written as GPX 1.1 with ele and time
+    track = S.fixes_to_track(S.exact_fixes(traj), LocalFrame.enu(46.5, 7.6, 800.0).inverse, with_accuracy=False)
+    log = tmp_path / "sb.gpx"
+    log.write_text(gpx_text(track))
+    done = subprocess.run([sys.executable, "-c", _TWO_PROCESS_CHECK, str(log)], capture_output=True, text=True,
+                          timeout=120)
+    assert done.returncode == 0 and done.stdout.strip() == "ok", done.stderr[-2000:]

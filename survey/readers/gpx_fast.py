@@ -17,6 +17,11 @@ How it stays a correct reader
 
 When any check fails ``read_fast`` returns ``None`` and the caller uses ``gpx_safe.read_safe``.
 Routes (files without track points) always take the safe path.
+
+Step 3 runs chunk by chunk; from ``PARALLEL_MIN_BYTES`` on, a forked second process reads the
+second half of the chunks meanwhile, when that is safe (a single-threaded, non-daemon process
+on a machine with two cores or more; ``_in_two_processes``). Measured on a 1M-point, 140 MB
+file, interleaved runs: 2.6 s -> 2.1 s median (1.7-2.4 s).
 """
 
 from __future__ import annotations
@@ -309,19 +314,77 @@ def _segments_from_skeleton(marked: bytes, runs: list[int]) -> tuple[str, list[i
 def _bulk_columns(data: bytes, pat: _Pattern, n: int) -> dict | None:
     """Run ``pat`` over ``data`` chunk by chunk and convert the captures with numpy.
 
-    ``None`` unless exactly ``n`` points match and every captured value converts.
+    ``None`` unless exactly ``n`` points match and every captured value converts. On a large
+    file the second half of the chunks is read by a forked second process meanwhile
+    (``_in_two_processes``); the result is the same.
     """
+    bounds = []
+    pos, size = 0, len(data)
+    while pos < size:
+        end = data.find(b"<trkpt", pos + CHUNK_BYTES)
+        end = size if end < 0 else end
+        bounds.append((pos, end))
+        pos = end
+    halves = _in_two_processes(data, pat, bounds)
+    if halves is None:
+        halves = [_columns_of(data, pat, bounds)]
+    if any(h is None for h in halves):
+        return None
+    parts = {k: [a for h in halves for a in h["parts"][k]] for k in halves[0]["parts"]}
+    if sum(h["count"] for h in halves) != n:
+        return None
+    out = {k: np.concatenate(v) if v else np.empty(0) for k, v in parts.items()}
+    out.update(naive=sum(h["naive"] for h in halves), has_sat=any(h["has_sat"] for h in halves),
+               has_hdop=any(h["has_hdop"] for h in halves))
+    return out
+
+
+#: Files from this size on are read by two processes when that is safe (``_in_two_processes``).
+PARALLEL_MIN_BYTES = 64 << 20
+_FORK_DATA: bytes | None = None  # the file, inherited by the forked reader (never pickled)
+
+
+def _in_two_processes(data: bytes, pat: _Pattern, bounds: list) -> list | None:
+    """Both halves' columns, the second half read by a forked process; None where that is not
+    safe or not worth it (small file, one core, other threads running -- forking a threaded
+    process can deadlock --, inside a daemon worker such as a batch pool's, no fork) or fails."""
+    import multiprocessing as mp
+    import os
+    import threading
+    from concurrent.futures import ProcessPoolExecutor
+
+    global _FORK_DATA
+    if (len(data) < PARALLEL_MIN_BYTES or len(bounds) < 2 or (os.cpu_count() or 1) < 2
+            or threading.active_count() > 1 or mp.current_process().daemon
+            or "fork" not in mp.get_all_start_methods()):
+        return None
+    mid = len(bounds) // 2
+    _FORK_DATA = data
+    try:
+        with ProcessPoolExecutor(max_workers=1, mp_context=mp.get_context("fork")) as ex:
+            second = ex.submit(_columns_of_forked, pat, bounds[mid:])
+            first = _columns_of(data, pat, bounds[:mid])
+            return [first, second.result()]
+    except Exception:  # noqa: BLE001 -- any trouble with the second process: read it all here
+        return None
+    finally:
+        _FORK_DATA = None
+
+
+def _columns_of_forked(pat: _Pattern, bounds: list) -> dict | None:
+    return _columns_of(_FORK_DATA, pat, bounds)
+
+
+def _columns_of(data: bytes, pat: _Pattern, bounds: list) -> dict | None:
+    """Captured columns of the chunks ``bounds`` [(start, end) byte offsets], or None when a
+    value does not convert."""
     parts: dict[str, list] = {k: [] for k in ("lat", "lon", "ele", "time", "sat", "hdop", "course", "speed")}
     naive = 0
     has_sat = has_hdop = False
     count = 0
-    pos, size = 0, len(data)
     g = pat.groups
-    while pos < size:
-        end = data.find(b"<trkpt", pos + CHUNK_BYTES)
-        end = size if end < 0 else end
+    for pos, end in bounds:
         rows = pat.regex.findall(data, pos, end)
-        pos = end
         if not rows:
             continue
         count += len(rows)
@@ -344,11 +407,7 @@ def _bulk_columns(data: bytes, pat: _Pattern, n: int) -> dict | None:
             return None
         has_sat = has_sat or bool(g["sat"]) and (pat.requires("sat") or any(c[g["sat"][0]]))
         has_hdop = has_hdop or bool(g["hdop"]) and (pat.requires("hdop") or any(c[g["hdop"][0]]))
-    if count != n:
-        return None
-    out = {k: np.concatenate(v) for k, v in parts.items()}
-    out.update(naive=naive, has_sat=has_sat, has_hdop=has_hdop)
-    return out
+    return {"parts": parts, "count": count, "naive": naive, "has_sat": has_sat, "has_hdop": has_hdop}
 
 
 def _optional_numbers(strings, n: int, required: bool = False) -> np.ndarray:
