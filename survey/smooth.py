@@ -500,7 +500,6 @@ def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, 
         y = y[:, None]
     d = m.dim
     K = design.n_knots
-    u = 2 * d - 1
     fin = np.all(np.isfinite(y), axis=1)
     ok = fin & np.isfinite(var) & (var > 0)
     w = np.where(ok, 1.0 / np.where(ok, var, 1.0), 0.0)
@@ -510,27 +509,15 @@ def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, 
     A = F.T @ Qinv @ F
     Bo = -F.T @ Qinv
     p0 = _prior0(m, pos_sd)
-    # the data term per interval, entry by entry: each one contiguous row (K-1,)
-    gT = _gram_rows(C, _interval_sums(design, w, N_LEG), d)
     s = _interval_sums(design, w[:, None] * yy, 8) @ B.T  # (K-1, A, 2d)
+    moments = [(C, _interval_sums(design, w, N_LEG))]
     wv = yv = None
     if vel is not None:  # velocity rows add their own precision and right-hand side
         wv, yv = _velocity_data(design, vel, vel_var)
         Bv, Cv = _vtables(d)
-        gT += _gram_rows(Cv, _interval_sums(design, wv, N_LEG), d)
+        moments.append((Cv, _interval_sums(design, wv, N_LEG)))
         s = s + _interval_sums(design, wv[:, None] * yv, 8) @ Bv.T
-    ab = np.zeros((u + 1, K * d))
-    band = np.empty(K)
-    for i in range(d):
-        for j in range(i, d):  # diagonal blocks: left knot of interval k, right knot of k-1
-            band[:-1] = gT[i, j] + A[..., i, j]
-            band[-1] = 0.0
-            band[1:] += gT[d + i, d + j] + Qinv[..., i, j]
-            if i == j:
-                band[0] += p0[i]
-            ab[u + i - j, j::d] = band
-        for j in range(d):  # off-diagonal block between knots k and k+1
-            ab[u + i - j - d, d + j :: d] = gT[i, d + j] + Bo[..., i, j]
+    ab = _band(moments, d, K, A, Qinv, Bo, p0)
     rhs = np.zeros((K, d, y.shape[1]))
     rhs[:-1] += np.swapaxes(s[:, :, :d], 1, 2)
     rhs[1:] += np.swapaxes(s[:, :, d:], 1, 2)
@@ -538,11 +525,69 @@ def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, 
     return AxisSystem(ab, rhs.reshape(K * d, -1), d, F, Qinv, logdet_prior, p0, w, yy, design, m, wv=wv, yv=yv)
 
 
-def _gram_rows(C: FloatArray, moments: FloatArray, d: int) -> FloatArray:
-    """(2d, 2d, K-1) data-term entries of every knot interval: Legendre product table ``C``
-    (15, 4 d^2) times the interval moments (K-1, 15), laid out entry by entry."""
-    C3 = C.reshape(N_LEG, 2 * d, 2 * d)
-    return (C3.transpose(1, 2, 0).reshape(4 * d * d, N_LEG) @ moments.T).reshape(2 * d, 2 * d, -1)
+#: Knot intervals per block of the band assembly: the block's temporaries stay a few MB (fresh
+#: pages for a large temporary cost more than the product itself; benchmarks/bench_profile.py).
+_BAND_BLOCK = 8192
+
+
+def _band_tables(C: FloatArray, d: int) -> tuple[FloatArray, FloatArray]:
+    """(TL, TR) (15, 2d * d): Legendre moments of a knot interval's fixes -> its data terms in
+    the band layout of its left knot and of its right knot. Band slot (r, j) of knot k holds
+    Lambda[k d + j - (2d - 1) + r, k d + j]: an entry of knot k's own block when j + r >= 2d - 1,
+    else of the block between knots k - 1 and k. Unused slots have zero columns."""
+    u = 2 * d - 1
+    C = C.reshape(N_LEG, 2 * d, 2 * d)
+    TL = np.zeros((N_LEG, u + 1, d))
+    TR = np.zeros((N_LEG, u + 1, d))
+    for i in range(d):
+        for j in range(d):
+            if i <= j:  # own block of the interval's left knot and of its right knot (upper triangle)
+                TL[:, u + i - j, j] = C[:, i, j]
+                TR[:, u + i - j, j] = C[:, d + i, d + j]
+            TR[:, u + i - j - d, j] = C[:, i, d + j]  # between the two knots
+    return TL.reshape(N_LEG, -1), TR.reshape(N_LEG, -1)
+
+
+def _band(moments: list, d: int, K: int, A: FloatArray, Qinv: FloatArray, Bo: FloatArray,
+          p0: FloatArray) -> FloatArray:
+    """Upper band storage (2d, K d) of the posterior precision: prior blocks plus the data terms
+    of every knot interval, from the Legendre moments of its fixes (``moments``: (product table
+    (15, 4 d^2), moments (K-1, 15)) per kind of measurement row, their terms added).
+
+    Knot k's own block is (left-knot data of interval k + F^T Q^-1 F) + (right-knot data of
+    interval k-1 + Q^-1) (+ the first knot's prior); the block between knots k and k+1 is
+    interval k's cross data - F^T Q^-1. Assembled ``_BAND_BLOCK`` intervals at a time directly
+    in the band layout (``_band_tables``), each block's left and right parts added into the
+    band, which starts at 0 (x + y is exact in either order, so the matrix is the one the
+    entry-by-entry sums give)."""
+    u = 2 * d - 1
+    Lc = np.zeros((u + 1, d))
+    Rc = np.zeros((u + 1, d))
+    for i in range(d):
+        for j in range(d):
+            if i <= j:
+                Lc[u + i - j, j] = A[i, j]
+                Rc[u + i - j, j] = Qinv[i, j]
+            Rc[u + i - j - d, j] = Bo[i, j]
+    tables = [(_band_tables(C, d), mom) for C, mom in moments]
+    ab = np.zeros((u + 1, K * d))
+    abk = ab.reshape(u + 1, K, d)  # a view: slot row, knot, state
+    for a in range(0, K - 1, _BAND_BLOCK):
+        c = min(K - 1, a + _BAND_BLOCK)
+        for side, const, at in ((0, Lc, slice(a, c)), (1, Rc, slice(a + 1, c + 1))):
+            g = None
+            for T, mom in tables:
+                gi = mom[a:c] @ T[side]  # (c - a, 2d * d)
+                if g is None:
+                    g = gi
+                else:
+                    g += gi
+            g = g.reshape(c - a, u + 1, d)
+            g += const
+            abk[:, at] += g.transpose(1, 0, 2)
+    for i in range(d):
+        ab[u, i] += p0[i]
+    return ab
 
 
 def _velocity_data(design: Design, vel: FloatArray, vel_var: FloatArray) -> tuple[FloatArray, FloatArray]:
