@@ -401,9 +401,11 @@ def _interval_blocks(k: NDArray[np.int64]):
         yield a, (starts[i1] if i1 < len(starts) else n), starts[i0:i1] - a
 
 
-def _interval_sums(design: Design, weights: FloatArray, count: int) -> FloatArray:
+def _interval_sums(design: Design, weights, count: int, columns: int | None = None) -> FloatArray:
     """(K-1, count): sum over the fixes of each knot interval of weights * P_j(x), j < count.
-    ``weights`` (n,) or (n, c) -> (K-1, count) or (K-1, c, count).
+    ``weights`` (n,) or (n, c) -> (K-1, count) or (K-1, c, count). ``weights`` may instead be a
+    function (a, b) -> weights of fixes a..b-1, (b - a, ``columns``): it is called once per block,
+    in order of the fixes, so a long weight array is never held whole (``noise_draws``).
 
     The fixes are sorted by interval and summed in blocks of about ``_SUM_BLOCK`` fixes (cut at
     interval starts) so the Legendre values stay in cache. One weight column: one ``bincount``
@@ -413,7 +415,8 @@ def _interval_sums(design: Design, weights: FloatArray, count: int) -> FloatArra
     from scipy.sparse import csr_matrix
 
     k, K1 = design.interval, design.n_knots - 1
-    if weights.ndim == 1:
+    block = weights if callable(weights) else (lambda a, b: weights[a:b])
+    if not callable(weights) and weights.ndim == 1:
         out = np.zeros((K1, count))
         for a, b, _ in _interval_blocks(k):
             k0, span = k[a], k[b - 1] - k[a] + 1
@@ -421,14 +424,14 @@ def _interval_sums(design: Design, weights: FloatArray, count: int) -> FloatArra
             for j, pj in enumerate(_legendre_columns(design.x[a:b], count)):
                 out[k0 : k0 + span, j] = np.bincount(kk, weights=wa * pj, minlength=span)
         return out
-    c = weights.shape[1]
+    c = columns if callable(weights) else weights.shape[1]
     out = np.zeros((K1, c, count))
     for a, b, runs in _interval_blocks(k):
         m, r = b - a, len(runs)
         indptr = np.r_[(np.arange(count)[:, None] * m + runs).ravel(), count * m]
         P = csr_matrix((_legendre_columns(design.x[a:b], count).ravel(), np.tile(np.arange(m), count), indptr),
                        shape=(count * r, m))
-        out[k[a + runs]] = np.moveaxis((P @ weights[a:b]).reshape(count, r, c), 0, 2)
+        out[k[a + runs]] = np.moveaxis((P @ block(a, b)).reshape(count, r, c), 0, 2)
     return out
 
 
@@ -522,7 +525,11 @@ def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, 
     rhs[:-1] += np.swapaxes(s[:, :, :d], 1, 2)
     rhs[1:] += np.swapaxes(s[:, :, d:], 1, 2)
     logdet_prior = float(np.sum(np.log(p0)) + (K - 1) * logdet_q)
-    return AxisSystem(ab, rhs.reshape(K * d, -1), d, F, Qinv, logdet_prior, p0, w, yy, design, m, wv=wv, yv=yv)
+    gain = None
+    if d > N_PATH:  # the wander's gain for noise_draws, from the moments already at hand
+        _, _, W0, W1 = _tables(d)
+        gain = (moments[0][1] @ W0, moments[0][1] @ W1)
+    return AxisSystem(ab, rhs.reshape(K * d, -1), d, F, Qinv, logdet_prior, p0, w, yy, design, m, gain, wv=wv, yv=yv)
 
 
 #: Knot intervals per block of the band assembly: the block's temporaries stay a few MB (fresh
@@ -720,6 +727,10 @@ def _ar1(z: FloatArray, phi: float) -> FloatArray:
     return b
 
 
+#: Knot intervals per block of the draws' right-hand sides (their temporaries stay in cache).
+_RHS_BLOCK = 4096
+
+
 def noise_draws(
     system: AxisSystem, U: FloatArray, white_var: FloatArray, model: NoiseModel, n_samples: int,
     rng: np.random.Generator, n_axes: int | None = None,
@@ -744,14 +755,17 @@ def noise_draws(
     d = system.dim
     A = system.rhs.shape[1] if n_axes is None else n_axes  # the first n_axes columns only
     K = system.design.n_knots
-    n = len(system.w)
     B, _, W0, W1 = _tables(d)
-    ok = system.w > 0
     cols = n_samples * A
-    e = rng.standard_normal((n, cols))
-    e *= (np.sqrt(np.where(ok, white_var, 0.0)) * system.w)[:, None]
-    sums = _interval_sums(system.design, e, 8)  # (K-1, cols, 8)
-    del e
+    scale = np.sqrt(np.where(system.w > 0, white_var, 0.0))
+    scale *= system.w
+
+    def white(a, b):  # drawn block by block in order of the fixes: the same numbers as at once
+        e = rng.standard_normal((b - a, cols))
+        e *= scale[a:b, None]
+        return e
+
+    sums = _interval_sums(system.design, white, 8, cols)  # (K-1, cols, 8)
     b = None
     if model.wander_var_m2 > 0:
         phi = float(np.exp(-system.design.h / model.wander_tau_s))
@@ -764,14 +778,18 @@ def noise_draws(
         g0, g1 = (g[:, :, None] for g in system.wander_gain)  # (K-1, 2d, 1)
     sums_v = None
     if system.wv is not None:  # the receiver's velocity noise: variance 1 / weight, white
-        ev = rng.standard_normal((n, cols))
-        ev *= np.sqrt(system.wv)[:, None]
-        sums_v = _interval_sums(system.design, ev, 8)
-        del ev
+        scale_v = np.sqrt(system.wv)
+
+        def white_v(a, b):
+            ev = rng.standard_normal((b - a, cols))
+            ev *= scale_v[a:b, None]
+            return ev
+
+        sums_v = _interval_sums(system.design, white_v, 8, cols)
         Bv = _vtables(d)[0]
     rhs = np.zeros((K, d, cols))
-    for a in range(0, K - 1, _SUM_BLOCK):
-        c = min(K - 1, a + _SUM_BLOCK)
+    for a in range(0, K - 1, _RHS_BLOCK):  # small blocks of intervals: temporaries stay in cache
+        c = min(K - 1, a + _RHS_BLOCK)
         v = np.swapaxes(sums[a:c] @ B.T, 1, 2)  # (m, 2d, cols)
         if sums_v is not None:
             v = v + np.swapaxes(sums_v[a:c] @ Bv.T, 1, 2)
