@@ -187,6 +187,11 @@ def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 4) -> np.ndarra
     the prediction of its neighbours). Repeated ``passes`` times with suspects removed, so a
     cluster of jumps is peeled one by one. The two fixes at each segment end have too few
     neighbours and are not tested.
+
+    Work: the first pass predicts every fix, in blocks of ``_JUMP_BLOCK`` (small temporaries);
+    a later pass predicts again only the fixes within two places of a fix just removed (no other
+    fix has a new neighbour, so its residual is the same), while the robust sigma is taken over
+    all residuals each pass, as the test asks.
     """
     n = len(track)
     suspect = np.zeros(n, bool)
@@ -194,32 +199,97 @@ def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 4) -> np.ndarra
         return suspect
     # Horizontal positions in metres along the chain of fixes (equirectangular per step), once:
     # dropping a fix later does not move the others.
-    pos_all = np.r_[np.zeros((1, 2)), np.cumsum(local_steps_m(track)[:, :2], axis=0)]
-    for _ in range(passes):
-        idx = np.flatnonzero(~suspect)
-        if idx.size < 5:
+    pe, pn = _chain_positions(track)
+    t, seg = track.time_s, track.segment
+    res = np.zeros((2, n))  # residual (east, north) of every fix, where tested
+    size = np.zeros(n)  # its norm; 0 where not tested
+    tested = np.zeros(n, bool)
+    chain = np.arange(n)  # the fixes still in the chain, in order
+    for a in range(2, n - 2, _JUMP_BLOCK):  # first pass: every interior fix, chain = all fixes
+        b = min(n - 2, a + _JUMP_BLOCK)
+        _predict(pe, pn, t, seg, [slice(a + q, b + q) for q in (-2, -1, 0, 1, 2)], res, size, tested)
+    for p in range(passes):
+        m = len(chain)
+        if m < 5 or not tested.any():
             break
-        pos, t, seg = pos_all[idx], track.time_s[idx], track.segment[idx]
-        i = np.arange(2, len(idx) - 2)
-        t0, t1, t2, t3, ti = t[i - 2], t[i - 1], t[i + 1], t[i + 2], t[i]
-        ok = (seg[i - 2] == seg[i]) & (seg[i + 2] == seg[i]) & (t0 < t1) & (t1 < ti) & (ti < t2) & (t2 < t3)
-        i, t0, t1, t2, t3, ti = i[ok], t0[ok], t1[ok], t2[ok], t3[ok], ti[ok]
-        if i.size == 0:
-            break
-        w0, w1, w2, w3 = _lagrange_weights((t0, t1, t2, t3), ti)
-        resid = pos[i] - (w0[:, None] * pos[i - 2] + w1[:, None] * pos[i - 1]
-                          + w2[:, None] * pos[i + 1] + w3[:, None] * pos[i + 2])
-        sigma = robust_sigma(resid.ravel())
+        sigma = robust_sigma(res[:, tested].ravel())  # both axes' components
         if not sigma > 0:
             break
-        full = np.zeros(len(idx))
-        full[i] = np.hypot(resid[:, 0], resid[:, 1])
-        peak = (full >= np.r_[0.0, full[:-1]]) & (full >= np.r_[full[1:], 0.0])
-        bad = (full > z * sigma) & peak
-        if not bad.any():
+        cand = np.flatnonzero(size > z * sigma)  # tested fixes only: the others have size 0
+        at = np.searchsorted(chain, cand)  # their places in the chain
+        before = np.where(at > 0, size[chain[np.maximum(at - 1, 0)]], 0.0)
+        after = np.where(at < m - 1, size[chain[np.minimum(at + 1, m - 1)]], 0.0)
+        hit = (size[cand] >= before) & (size[cand] >= after)  # the local peak
+        bad, at = cand[hit], at[hit]
+        if bad.size == 0:
             break
-        suspect[idx[bad]] = True
+        suspect[bad] = True
+        if p == passes - 1:
+            break
+        # fixes within two places of a removed one get new neighbours: predict them again
+        near = np.unique(np.clip(at[:, None] + np.arange(-2, 3), 0, m - 1))
+        redo = np.setdiff1d(chain[near], bad, assume_unique=True)
+        tested[bad] = False
+        size[bad] = 0.0
+        chain = np.flatnonzero(~suspect)
+        m = len(chain)
+        places = np.searchsorted(chain, redo)
+        inner = (places >= 2) & (places <= m - 3)
+        tested[redo[~inner]] = False
+        size[redo[~inner]] = 0.0
+        places = places[inner]
+        if places.size:
+            _predict(pe, pn, t, seg, [chain[places + q] for q in (-2, -1, 0, 1, 2)], res, size, tested)
     return suspect
+
+
+#: Fixes per block of the first prediction pass of ``jump_suspects``.
+_JUMP_BLOCK = 65_536
+
+
+def _chain_positions(track: Track) -> tuple[np.ndarray, np.ndarray]:
+    """East and north (n,) of every fix along the chain of fixes, m from the first: the running
+    sum of the equirectangular steps of ``local_steps_m`` (same arithmetic, east and north only)."""
+    lat = np.radians(track.lat_deg)
+    dlon = np.diff(np.radians(track.lon_deg))
+    dlon += np.pi
+    dlon %= 2 * np.pi
+    dlon -= np.pi
+    mid = lat[1:] + lat[:-1]
+    mid *= 0.5
+    de = np.cos(mid, out=mid)
+    de *= EARTH_RADIUS_M
+    de *= dlon
+    dn = np.diff(lat)
+    dn *= EARTH_RADIUS_M
+    out = []
+    for step in (de, dn):
+        pos = np.empty(len(lat))
+        pos[0] = 0.0
+        np.cumsum(step, out=pos[1:])
+        out.append(pos)
+    return out[0], out[1]
+
+
+def _predict(pe, pn, t, seg, sel, res, size, tested) -> None:
+    """Test the fixes ``sel[2]`` (index array or slice) against the cubic through ``sel[0]``,
+    ``sel[1]`` (the two before) and ``sel[3]``, ``sel[4]`` (the two after): where the five are
+    in one segment with strictly increasing times, store the residual and its norm and mark the
+    fix tested; elsewhere mark it untested (in place)."""
+    i = np.arange(sel[2].start, sel[2].stop) if isinstance(sel[2], slice) else sel[2]
+    t0, t1, ti, t2, t3 = (t[s] for s in sel)
+    si = seg[sel[2]]
+    ok = (seg[sel[0]] == si) & (seg[sel[4]] == si) & (t0 < t1) & (t1 < ti) & (ti < t2) & (t2 < t3)
+    tested[i] = ok
+    size[i[~ok]] = 0.0
+    if not ok.any():
+        return
+    w0, w1, w2, w3 = _lagrange_weights((t0[ok], t1[ok], t2[ok], t3[ok]), ti[ok])
+    i = i[ok]
+    for axis, p in enumerate((pe, pn)):
+        p0, p1, pi, p2, p3 = (p[s][ok] for s in sel)
+        res[axis, i] = pi - (w0 * p0 + w1 * p1 + w2 * p2 + w3 * p3)
+    size[i] = np.hypot(res[0, i], res[1, i])
 
 
 def _lagrange_weights(nodes: tuple[np.ndarray, ...], at: np.ndarray) -> list[np.ndarray]:

@@ -119,3 +119,48 @@ def test_standing_still_with_noise_flags_no_jumps():
     t = np.arange(900.0)
     suspect = jump_suspects(track_from_metres(t, rng.normal(0, 3, t.size), rng.normal(0, 3, t.size)))
     assert not suspect.any()
+
+
+def _suspects_by_direct_prediction(t, north, east, segment, z=8.0, passes=4):
+    """Reference for ``jump_suspects``: every pass predicts every remaining interior fix afresh
+    with scipy.interpolate.lagrange through its two neighbours on each side (a loop over fixes)."""
+    from scipy.interpolate import lagrange
+
+    suspect = np.zeros(t.size, bool)
+    for _ in range(passes):
+        idx = np.flatnonzero(~suspect)
+        full = np.zeros(idx.size)
+        resid = []
+        for p in range(2, idx.size - 2):
+            nb = idx[[p - 2, p - 1, p + 1, p + 2]]
+            if np.any(segment[nb] != segment[idx[p]]) or np.any(np.diff(t[idx[p - 2 : p + 3]]) <= 0):
+                continue
+            r = [y[idx[p]] - lagrange(t[nb] - t[idx[p]], y[nb])(0.0) for y in (east, north)]
+            resid += r
+            full[p] = np.hypot(*r)
+        d = np.array(resid)
+        sigma = 1.4826 * np.median(np.abs(d - np.median(d)))  # MAD (Rousseeuw & Croux 1993)
+        peak = (full >= np.r_[0.0, full[:-1]]) & (full >= np.r_[full[1:], 0.0])
+        bad = (full > z * sigma) & peak
+        if not bad.any():
+            break
+        suspect[idx[bad]] = True
+    return suspect
+
+
+def test_clusters_of_jumps_are_peeled_pass_by_pass_as_a_fresh_prediction_finds():
+    # reference: a direct per-fix prediction repeated in full every pass (scipy's Lagrange
+    # polynomial); jump_suspects predicts again only next to the fixes it has just removed
+    rng = np.random.default_rng(11)
+    t = np.cumsum(rng.uniform(0.5, 1.5, 500))
+    north = 3.0 * t + rng.normal(0, 0.5, t.size)
+    east = 20.0 * np.sin(t / 40.0) + rng.normal(0, 0.5, t.size)
+    segment = np.where(np.arange(t.size) < 260, 0, 1)
+    east[[100, 101, 102]] += [40.0, 45.0, 38.0]  # a cluster: found one by one
+    north[[200, 202]] -= [30.0, 33.0]
+    east[[257, 258, 262]] += 25.0  # next to the segment change
+    track = track_from_metres(t, north, east, segment=segment)
+    got = jump_suspects(track)
+    want = _suspects_by_direct_prediction(t, north, east, segment)
+    assert np.flatnonzero(got).tolist() == np.flatnonzero(want).tolist()
+    assert jump_suspects(track, passes=1).sum() < got.sum()  # later passes found more
