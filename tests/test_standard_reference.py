@@ -1,0 +1,76 @@
+"""Our profile against the standard reference the issue's targets are set against.
+
+The standard is a per-axis constant-jerk Kalman filter + Rauch-Tung-Striebel smoother with its
+noise chosen by maximum likelihood (benchmarks/standard_rts.py), built on the reference library
+filterpy (KalmanFilter.batch_filter, rts_smoother, Q_continuous_white_noise). Truth comes from
+the closed forms in survey.synthetic (helix: kappa = a/(a^2+c^2), do Carmo 1976; REFERENCES.md).
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+pytest.importorskip("filterpy")  # test extra: the reference smoother is built on it
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "benchmarks"))
+
+from standard_rts import standard_kappa_tau  # noqa: E402
+
+from survey import synthetic as S  # noqa: E402
+from survey.clean import clean_track  # noqa: E402
+from survey.frame import LocalFrame  # noqa: E402
+from survey.profile_build import build_profile  # noqa: E402
+
+FRAME = LocalFrame.enu(46.5, 7.6, 800.0)  # invented site
+
+
+def _kappa_error_by_time(traj: S.Trajectory, time_s: np.ndarray, kappa_per_m: np.ndarray) -> float:
+    """Median relative kappa error on the curved part, each estimate against the exact kappa of
+    the true path where the mover was at the estimate's time (one yardstick for both methods)."""
+    true = traj.truth_at_chainage(np.interp(time_s, traj.time_s, traj.chainage_m))["curvature_per_m"]
+    curved = true > 0.5 * np.max(true)
+    return float(np.median(np.abs(kappa_per_m[curved] / true[curved] - 1.0)))
+
+
+def test_our_profile_curvature_is_no_worse_than_the_standard_ml_rts_smoother_on_the_phone_helix():
+    # The issue's phone case: helix a = 50 m, c = 5 m/rad, 3 turns at 10 m/s, 10 Hz; phone-grade
+    # error (1.5 m white + 3 m / 60 s wander per axis, heights x1.6: survey.synthetic.GNSS_GRADES).
+    # Closed-form truth kappa = a/(a^2+c^2) = 0.0198 1/m (do Carmo 1976). Medians over three
+    # noise draws. Measured on draws [seed, 77] for seeds 0-29 (per-seed ratio standard/ours
+    # 1.01-1.81, ours better on all 30; median-of-3 ratio over the ten disjoint triples 1.18-1.61,
+    # over every run of three consecutive seeds at least 1.015); seeds 0-2 give medians ours
+    # 5.8 %, standard 7.1 %.
+    traj = S.helix(50.0, 5.0, 10.0, 10.0, 3.0)
+    ours, standard = [], []
+    for seed in (0, 1, 2):
+        fixes = S.add_gnss_error(traj, "phone", np.random.default_rng([seed, 77]))
+        track, _ = clean_track(S.fixes_to_track(fixes, FRAME.inverse))
+        e, n, u = FRAME.forward(track.lat_deg, track.lon_deg, track.height_m)
+        profile = build_profile(track, np.column_stack([e, n, u]), FRAME)
+        ours.append(_kappa_error_by_time(traj, profile.time_s, profile.curvature_per_m))
+        t, kappa, _ = standard_kappa_tau(fixes.time_s, fixes.enu_m)
+        standard.append(_kappa_error_by_time(traj, t, kappa))
+    assert np.median(ours) <= np.median(standard), (ours, standard)
+
+
+def test_standard_smoother_recovers_the_radius_of_steady_circular_motion():
+    # Closed form: constant speed v on a circle of radius R has a = v^2/R, so kappa = |v x a|/|v|^3
+    # = 1/R (common practice; REFERENCES.md "Steady circular motion"). R = 50 m, 10 m/s, 10 Hz with
+    # +-30 % timing jitter and a 3 s outage (each step's own dt must be used), 1 mm white noise.
+    # Tolerances: over seeds 0-2, with and without jitter, the median |kappa R - 1| was
+    # 0.04-0.07 % and its maximum 2 s away from the ends 0.24-0.37 %; the bounds are about 3x
+    # that. A filter built on the nominal 0.1 s step instead gives 3-4 % median and a 12x error
+    # after the outage.
+    radius_m = 50.0
+    rng = np.random.default_rng(5)
+    traj = S.helix(radius_m, 0.0, 10.0, 10.0, 1.0, jitter=0.3, rng=rng)
+    fixes = S.add_gnss_error(traj, "rtk", rng, white_m=0.001, wander_m=0.0)
+    fixes = S.add_outage(fixes, 10.0, 3.0)
+    t, kappa, _ = standard_kappa_tau(fixes.time_s, fixes.enu_m)
+    inner = (t > t[0] + 2.0) & (t < t[-1] - 2.0)  # the smoother's two ends see one side only
+    rel = np.abs(kappa[inner] * radius_m - 1.0)
+    assert np.median(rel) <= 0.002
+    assert np.max(rel) <= 0.01
