@@ -165,12 +165,15 @@ def interpolate_states(knot_states: FloatArray, knot_t0: float, h: float, t: Flo
     (..., n, A, 4) SI states at ``t``. Every knot interval's degree-7 polynomial is turned into
     monomial coefficients once; each query is then one gather and Horner's scheme, in chunks of
     about ``chunk`` values (queries x batch x axes) so temporaries stay small
-    (``evaluate_intervals``).
+    (``evaluate_intervals``). When ``t`` are the knots themselves, a read-only view of
+    ``knot_states`` (no copy of a long array).
     """
     K = knot_states.shape[-3]
     t = np.asarray(t, float)
     if len(t) == K and np.array_equal(t, knot_t0 + h * np.arange(K)):
-        return knot_states.copy()  # the knots themselves: no interpolation
+        view = knot_states.view()  # the knots themselves: no interpolation
+        view.flags.writeable = False
+        return view
     return evaluate_intervals(interval_coefficients(knot_states, h), knot_t0, h, t, chunk)
 
 

@@ -112,7 +112,7 @@ def test_fixed_point_cells_equal_python_formatting():
     # reference: Python's correctly rounded '%.*f' (values kept away from rounding ties)
     rng = np.random.default_rng(5)
     v = rng.normal(size=4000) * 10.0 ** rng.integers(-6, 9, 4000)
-    for decimals in (0, 3, 4, 10):
+    for decimals in (0, 3, 4, 5, 9, 10):  # every width the profile CSV uses, odd and even
         scaled = np.abs(v) * 10.0**decimals
         keep = (np.abs(scaled - np.floor(scaled) - 0.5) > 1e-3) & (scaled >= 1.0) & (scaled < 2**52)
         cells = _fixed_bytes(v[keep], decimals)
@@ -120,3 +120,17 @@ def test_fixed_point_cells_equal_python_formatting():
         assert got == [f"{x:.{decimals}f}" for x in v[keep]]
     empty = _fixed_bytes(np.array([np.nan, np.inf, -np.inf]), 4)
     assert not empty.any()
+
+
+def test_fixed_point_cells_of_huge_scaled_values_equal_python_integer_formatting():
+    # reference: Python's int formatting of round(|v| 10^d), point put d digits from the right
+    # (above 2^52 the scaled value is an int64, not a float)
+    rng = np.random.default_rng(6)
+    v = rng.choice([-1.0, 1.0], 500) * rng.uniform(4.6e5, 8.9e7, 500)
+    cells = _fixed_bytes(v, 10)
+    got = [bytes(row[row != 0]).decode() for row in cells]
+    want = []
+    for x in v:
+        digits = str(int(np.rint(abs(x) * 1e10)))
+        want.append(("-" if x < 0 else "") + digits[:-10] + "." + digits[-10:])
+    assert got == want
