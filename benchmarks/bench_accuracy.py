@@ -1,6 +1,6 @@
-"""Accuracy benchmark: ours vs the naive cubic-spline baseline on closed-form cases.
+"""Accuracy benchmark: ours vs a naive cubic-spline baseline and a standard RTS smoother.
 
-Run:  python benchmarks/bench_accuracy.py [--quick] [--seed N] [--seeds K]
+Run:  python benchmarks/bench_accuracy.py [--quick] [--seed N] [--seeds K] [--standard]
 Prints one table. Each case draws its receiver error from its own generator, seeded by (seed, case
 number), so adding a case does not change the others' draws; with --seeds K every cell is the
 median over seeds N .. N+K-1 (and the pass check is on those medians). Every case runs the product's own pipeline: synthetic fixes -> Track ->
@@ -35,6 +35,20 @@ Baseline columns (B_*) use the same metrics on the per-axis cubic smoothing spli
 the fix times. "x base" is baseline error / our error for the case's headline metric (>= 2 is the
 issue's target). "pass" checks the issue's target for that case; corrupted cases are checked
 against 1.5x their clean twin.
+
+With --standard, S_* columns use the same metrics, at the fix times and against the same
+by-time truth as the baseline, on the standard reference the issue's targets are set against
+(benchmarks/standard_rts.py): a per-axis constant-jerk Kalman filter and Rauch-Tung-Striebel
+smoother (Rauch, Tung & Striebel 1965; REFERENCES.md) from the filterpy library, white-snap
+process noise q and white position noise r chosen by maximum likelihood (east and north share
+one pair, up has its own), no outlier handling, no wander model, positions only (it ignores the
+Doppler velocity and the per-fix accuracy). "x std" is the standard's error / ours for the
+headline metric (>= 1: ours is at least as good). "x std t", for the radius cases, is the
+standard's R_med / our R_t, both against the truth at each estimate's own time: the shape alone,
+our chainage drift left out (the standard has no chainage). "std pass" checks the standard's own
+medians against the case's targets (all but len; corrupted cases against 1.5x the standard's own
+clean twin). "S secs" is the standard's time per case. It is behind the flag because it takes
+longer than our whole pipeline (compare the secs column): about 2.5x the plain run's time.
 """
 
 from __future__ import annotations
@@ -97,7 +111,16 @@ def length_floor(traj, grade: str, duration_s: float, covered_m: float) -> float
     return float(np.sqrt(2.0 * g * g * (1.0 - np.exp(-duration_s / tau))) / covered_m)
 
 
-def run_case(traj, grade, rng, corrupt=False, with_accuracy=True):
+def reference_metrics(prefix, t, kappa, tau, traj, has_tau):
+    """``metrics()`` of a reference method's estimates at fix times t, against the truth at the
+    true chainage of those times (the baseline's and the standard's common yardstick)."""
+    s = np.interp(t, traj.time_s, traj.chainage_m)
+    tr = traj.truth_at_chainage(s)
+    m = metrics(kappa, tau, tr["curvature_per_m"], tr["torsion_per_m"], s, has_tau)
+    return {f"{prefix}_{k}": v for k, v in m.items()}
+
+
+def run_case(traj, grade, rng, corrupt=False, with_accuracy=True, standard=False):
     white_only = grade.endswith(" white")
     doppler = grade.endswith(" doppler")
     grade = grade.removesuffix(" white").removesuffix(" doppler")
@@ -121,12 +144,15 @@ def run_case(traj, grade, rng, corrupt=False, with_accuracy=True):
     covered = np.ptp(np.interp([np.min(f.time_s), np.max(f.time_s)], traj.time_s, traj.chainage_m))
     m["len"] = abs(p.settings["path_length_m"] / covered - 1.0)
     m["lenF"] = 0.0 if white_only else length_floor(traj, grade, float(np.ptp(f.time_s)), covered)
-    tb, kb, taub = baseline_kappa_tau(f.time_s, f.enu_m)
-    sb = np.interp(tb, traj.time_s, traj.chainage_m)
-    trb = traj.truth_at_chainage(sb)
-    b = metrics(kb, taub, trb["curvature_per_m"], trb["torsion_per_m"], sb, has_tau)
-    m.update({f"B_{k}": v for k, v in b.items()})
+    m.update(reference_metrics("B", *baseline_kappa_tau(f.time_s, f.enu_m), traj, has_tau))
     m["secs"] = secs
+    if standard:
+        from standard_rts import standard_kappa_tau  # needs filterpy (a test extra)
+
+        t0 = time.perf_counter()
+        ts, ks, taus = standard_kappa_tau(f.time_s, f.enu_m)
+        m["S_secs"] = time.perf_counter() - t0
+        m.update(reference_metrics("S", ts, ks, taus, traj, has_tau))
     return m
 
 
@@ -166,19 +192,41 @@ def cases(quick: bool):
     return rows
 
 
+def standard_verdict(m, target, head, done) -> str:
+    """Does the standard smoother itself meet the case's targets (its own medians; no length)?"""
+    if target is None:
+        return "-"
+    if isinstance(target, str):  # corrupted: no worse than 1.5x the standard on the clean twin
+        twin = done.get(target)
+        if not twin:
+            return "-"
+        checks = {k: 1.5 * twin[f"S_{k}"] for k in ("k_med", head)}
+    else:
+        checks = target
+    ok = all(np.isfinite(m[f"S_{k}"]) and m[f"S_{k}"] <= v for k, v in checks.items())
+    return "yes" if ok else "NO"
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="five cases only")
     ap.add_argument("--seed", type=int, default=2024)
     ap.add_argument("--seeds", type=int, default=1, help="median over this many seeds from --seed")
+    ap.add_argument("--standard", action="store_true",
+                    help="also run the standard constant-jerk RTS smoother with ML noise (S_* columns)")
     args = ap.parse_args(argv)
     cols = ["k_med", "k_rms", "R_med", "R_t", "t_med", "tp95/k", "len", "lenF", "B_k_med", "B_R_med", "B_t_med",
             "B_tp95/k"]
-    print(f"{'case':29s} " + " ".join(f"{c:>8s}" for c in cols) + f" {'x base':>7s} {'secs':>5s}  target -> pass")
+    if args.standard:
+        cols += ["S_k_med", "S_k_rms", "S_R_med", "S_t_med", "S_tp95/k"]
+    extra = f" {'x std':>6s} {'x std t':>7s} {'S secs':>6s} {'std pass':>8s}" if args.standard else ""
+    print(f"{'case':29s} " + " ".join(f"{c:>8s}" for c in cols) + f" {'x base':>7s} {'secs':>5s}{extra}"
+          "  target -> pass")
     done: dict[str, dict] = {}
     for number, label, make, grade, corrupt, target, head in cases(args.quick):
         runs = [run_case(make(), grade, np.random.default_rng([seed, number]), corrupt,
-                         with_accuracy="no acc" not in label) for seed in range(args.seed, args.seed + args.seeds)]
+                         with_accuracy="no acc" not in label, standard=args.standard)
+                for seed in range(args.seed, args.seed + args.seeds)]
         m = {k: float(np.median([r[k] for r in runs])) for k in runs[0]}
         done[label] = m
         if target is None:  # a diagnostic row
@@ -195,7 +243,12 @@ def main(argv=None) -> int:
         ratio = m[f"B_{head}"] / m[head] if m[head] > 0 else np.inf
         tgt = ", ".join(f"{k}<={v:.3g}" for k, v in checks.items())
         cells = " ".join(f"{m[c]:8.2%}" if np.isfinite(m[c]) else f"{'-':>8s}" for c in cols)
-        print(f"{label:29s} {cells} {ratio:7.1f} {m['secs']:5.1f}  {tgt} -> {verdict}; "
+        extra = ""
+        if args.standard:
+            by_time = f"{m['S_R_med'] / m['R_t']:7.2f}" if head == "R_med" else f"{'-':>7s}"
+            extra = f" {m[f'S_{head}'] / m[head] if m[head] > 0 else np.inf:6.2f} {by_time} {m['S_secs']:6.1f} " \
+                    f"{standard_verdict(m, target, head, done):>8s}"
+        print(f"{label:29s} {cells} {ratio:7.1f} {m['secs']:5.1f}{extra}  {tgt} -> {verdict}; "
               f"2x baseline: {'yes' if ratio >= 2 else 'NO'}")
         sys.stdout.flush()
     return 0
