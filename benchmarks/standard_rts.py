@@ -37,7 +37,7 @@ wandering receiver error, no chainage: it is the textbook method, nothing more.
 from __future__ import annotations
 
 import numpy as np
-from filterpy.common import Q_continuous_white_noise, kinematic_state_transition
+from filterpy.common import Q_continuous_white_noise, inv_diagonal, kinematic_state_transition
 from filterpy.kalman import KalmanFilter
 from scipy.linalg import block_diag
 from scipy.optimize import minimize
@@ -49,8 +49,9 @@ from survey.geometry import curvature_torsion
 VAGUE_SIGMA = np.array([100.0, 100.0, 30.0, 10.0])
 #: innovations left out of the likelihood: they only pin down the 4-state vague start
 DIFFUSE_STEPS = 4
-#: coarse grid of log10(q dt^7 / r) for the starting value of q (dt = median step)
-_RATIO_GRID = np.arange(-9.0, 1.01, 1.0)
+#: coarse grid of log10(q dt^7 / r) for the starting value of q (dt = median step); the
+#: search then refines q by factors of 10 and less
+_RATIO_GRID = np.arange(-9.0, 1.01, 2.0)
 
 
 class AxisGroup:
@@ -79,6 +80,9 @@ class AxisGroup:
         kf.P = np.diag(np.tile(VAGUE_SIGMA**2, self.d))
         kf.H = self.H
         kf.R = np.eye(self.d) * r
+        # the axes are independent blocks, so S = H P H' + R is exactly diagonal: filterpy's own
+        # faster inverse for that case (its documentation: identical to np.linalg.inv there)
+        kf.inv = inv_diagonal
         Qs = self.Q1s * q
         means, covs, means_p, covs_p = kf.batch_filter(self.zs, Fs=self.Fs, Qs=Qs)
         return kf, means, covs, means_p, covs_p, Qs
