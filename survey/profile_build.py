@@ -60,7 +60,7 @@ import numpy as np
 
 from . import __version__
 from .geometry import curvature_torsion, frenet
-from .smooth import NoiseModel, fit_noise, robust_white_var, screen_outliers, smooth_stretch
+from .smooth import NoiseModel, choose_turn_prior, fit_noise, robust_white_var, screen_outliers, smooth_stretch
 from .stations import TORSION_LOW_CURVATURE, TORSION_NO_DATA, TORSION_OK, Profile
 from .track import HEIGHT_NONE, Track
 
@@ -82,6 +82,7 @@ DEFAULTS = {
     "station_chunk": 100_000,
     "grade_window_scales": 4.0,
     "refit_off_plane": True,
+    "turn_prior": True,
     "use_velocity": True,
     "velocity_sigma_mps": 0.15,
     "velocity_min_speed_mps": 0.5,
@@ -175,7 +176,7 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, s
         return empty_profile(track, frame, step_m, cfg, messages)
 
     # --- noise by maximum likelihood on a few stretches ---------------------------------------
-    fit_h, fit_v = _fit_models(stretches, use_acc, has_height, cfg)
+    fit_h, fit_v, (turn_factor, turn_gain) = _fit_models(stretches, use_acc, has_height, cfg)
     model_h = fit_h.model
     model_v = fit_v.model if fit_v is not None else None
     if has_height and model_v is None:
@@ -192,12 +193,16 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, s
                                                    scr_v, robust_iterations=cfg["robust_iterations"],
                                                    twice=cfg["speed_bias"] == "twice",
                                                    grade_window_scales=cfg["grade_window_scales"] or None,
-                                                   vel_en=v, vel_var=None if v is None else np.full(len(t), vel_var))
+                                                   vel_en=v, vel_var=None if v is None else np.full(len(t), vel_var),
+                                                   turn_q_factor=turn_factor)
 
     cols, knots, lengths = _place_stations(smoothed_stretches(), step_m, has_time, has_height, cfg, messages)
     if cols is None:
         return empty_profile(track, frame, step_m, cfg, messages)
     settings_out = _settings(cfg, step_m, model_h, model_v if has_height else None, use_acc, has_time, knots)
+    settings_out["plan_prior"] = ("constant jerk" if turn_factor is None else
+                                  f"turn-aware at the estimated turn rate, snap density x {turn_factor:.4g} "
+                                  f"(log likelihood +{turn_gain:.1f} over constant jerk)")
     if vel is not None:
         used = int(np.sum(np.isfinite(vel[ok]).all(axis=1)))
         settings_out["receiver_velocity"] = (f"{used} fixes' speed and course over ground measured the "
@@ -378,7 +383,8 @@ def _fit_models(stretches, use_acc, has_height, cfg):
             # grade fit is trusted only in parts of the piece), the plane did not describe them
             if fr.model.snap_psd < fv.model.snap_psd:
                 fv = fr
-    return fh, fv
+    turn = choose_turn_prior(pieces_h, fh.model) if cfg["turn_prior"] else (None, 0.0)
+    return fh, fv, turn
 
 
 def _off_plane(piece, model_h, model_v, cfg) -> np.ndarray | None:
@@ -603,7 +609,7 @@ def _settings(cfg, step_m, model_h: NoiseModel, model_v: NoiseModel | None, use_
     if model_v is not None:
         out.update(snap_psd_v_m2_s7=model_v.snap_psd, var_scale_v=model_v.var_scale,
                    wander_var_v_m2=model_v.wander_var_m2)
-    for k in ("n_samples", "sd_pool_knots", "seed", "wander_tau_s", "vertical_factor", "stop_sigmas", "slow_sigmas", "kappa_sigmas", "accuracy_cap", "robust_iterations", "speed_bias", "wander_ratio_max", "grade_window_scales"):
+    for k in ("n_samples", "sd_pool_knots", "seed", "wander_tau_s", "vertical_factor", "stop_sigmas", "slow_sigmas", "kappa_sigmas", "accuracy_cap", "robust_iterations", "speed_bias", "wander_ratio_max", "grade_window_scales", "turn_prior"):
         out[k] = cfg[k]
     return out
 
