@@ -26,6 +26,9 @@ Steps (one-way):
    which would oversmooth bends. Without stated accuracy the wander variance is bounded by
    ``wander_ratio_max`` x the fitted white variance (the data cannot identify it on a short log
    with tight turns; see ``survey.smooth``, "Wander without stated accuracy").
+   On the same pieces the likelihood then decides whether the plan smoother uses the
+   turn-aware prior at its first estimate's turn rate, and with which snap density
+   (``survey.smooth.choose_turn_prior``, "Turn-aware plan prior"; ``turn_prior`` False: never).
 5. 1-sigma of kappa, tau and the velocity from ``n_samples`` repeated-noise estimates (the
    smoother's sampling error, ``survey.smooth.noise_draws``) at the finest knots, deviations
    pooled over ``sd_pool_knots`` knots either side (``_uncertainty``). With a fused GNSS/IMU path
@@ -595,7 +598,7 @@ def _hold_geometry(cols: dict, slow: np.ndarray) -> None:
 def _settings(cfg, step_m, model_h: NoiseModel, model_v: NoiseModel | None, use_acc, has_time, knots) -> dict:
     out = {
         "tool_version": __version__,
-        "method": "constant-jerk RTS-equivalent banded smoother, noise by maximum likelihood",
+        "method": "banded smoother (constant-jerk or turn-aware prior), noise by maximum likelihood",
         "parameter": "time" if has_time else "raw chainage (log has no time)",
         "step_m": float(step_m),
         "measurement_noise": ("white + Gauss-Markov wander by ML, total bounded by accuracy_cap x stated accuracy^2"
