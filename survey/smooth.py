@@ -674,18 +674,17 @@ def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, 
     A = F.T @ Qinv @ F
     Bo = -F.T @ Qinv
     p0 = _prior0(m, pos_sd)
-    s = _interval_sums(design, w[:, None] * yy, 8) @ B.T  # (K-1, A, 2d)
+    c = y.shape[1]
+    parts = [(_interval_sums(design, lambda a, b: w[a:b, None] * yy[a:b], 8, c), B)]  # (K-1, A, 8)
     moments = [(C, _interval_sums(design, w, N_LEG))]
     wv = yv = None
     if vel is not None:  # velocity rows add their own precision and right-hand side
         wv, yv = _velocity_data(design, vel, vel_var)
         Bv, Cv = _vtables(d)
         moments.append((Cv, _interval_sums(design, wv, N_LEG)))
-        s = s + _interval_sums(design, wv[:, None] * yv, 8) @ Bv.T
+        parts.append((_interval_sums(design, lambda a, b: wv[a:b, None] * yv[a:b], 8, c), Bv))
     ab = _band(moments, d, K, A, Qinv, Bo, p0)
-    rhs = np.zeros((K, d, y.shape[1]))
-    rhs[:-1] += np.swapaxes(s[:, :, :d], 1, 2)
-    rhs[1:] += np.swapaxes(s[:, :, d:], 1, 2)
+    rhs = _knot_rhs(parts, K, d, c)
     logdet_prior = float(np.sum(np.log(p0)) + (K - 1) * logdet_q)
     gain = None
     if d > N_PATH:  # the wander's gain for noise_draws, from the moments already at hand
@@ -787,7 +786,8 @@ def _interval_legendre(system: AxisSystem, x: FloatArray, velocity: bool = False
     d = system.dim
     B = _vtables(d)[0] if velocity else _tables(d)[0]
     both = np.concatenate((x[:-1], x[1:]), axis=1)  # (K-1, 2d, A)
-    return np.swapaxes(both, 1, 2) @ B
+    K1, A = len(both), both.shape[2]
+    return (np.ascontiguousarray(np.swapaxes(both, 1, 2)).reshape(K1 * A, -1) @ B).reshape(K1, A, -1)
 
 
 def fitted(system: AxisSystem, x: FloatArray, velocity: bool = False) -> FloatArray:
@@ -838,20 +838,43 @@ def solve_columns(system: AxisSystem, U: FloatArray, y: FloatArray, yv: FloatArr
     system (weight 0) are left out here too. A system with velocity measurements needs the
     velocities ``yv`` (n, c), m/s, of the other data too."""
     d = system.dim
-    B = _tables(d)[0]
-    yw = np.where(system.w[:, None] > 0, y, 0.0)
-    yw *= system.w[:, None]
-    s = np.swapaxes(_interval_sums(system.design, yw, 8) @ B.T, 1, 2)  # (K-1, 2d, c)
+    w, c = system.w, y.shape[1]
+
+    def data(a, b):  # weighted data block by block: no (n, c) temporary
+        yw = np.where(w[a:b, None] > 0, y[a:b], 0.0)
+        yw *= w[a:b, None]
+        return yw
+
+    parts = [(_interval_sums(system.design, data, 8, c), _tables(d)[0])]
     if system.wv is not None:
         if yv is None:
             raise ValueError("this smoother takes velocity measurements: give the data's velocities")
-        vw = np.where(system.wv[:, None] > 0, yv * system.design.h, 0.0) * system.wv[:, None]
-        s = s + np.swapaxes(_interval_sums(system.design, vw, 8) @ _vtables(d)[0].T, 1, 2)
+        wv, h = system.wv, system.design.h
+
+        def data_v(a, b):
+            return np.where(wv[a:b, None] > 0, yv[a:b] * h, 0.0) * wv[a:b, None]
+
+        parts.append((_interval_sums(system.design, data_v, 8, c), _vtables(d)[0]))
     K = system.design.n_knots
-    rhs = np.zeros((K, d, y.shape[1]))
-    rhs[:-1] += s[:, :d]
-    rhs[1:] += s[:, d:]
+    rhs = _knot_rhs(parts, K, d, c)
     return cho_solve_banded((U, False), rhs.reshape(K * d, -1), check_finite=False).reshape(K, d, -1)
+
+
+def _knot_rhs(parts: list, K: int, d: int, c: int) -> FloatArray:
+    """Right-hand sides (K, d, c) from per-interval Legendre sums of weighted data: ``parts`` is
+    a list of (sums (K-1, c, 8), row table (2d, 8)); interval k's vector (2d) goes half to knot k,
+    half to knot k+1. In blocks of ``_RHS_BLOCK`` intervals, each block's product one 2-D matrix
+    product (a stack of (c, 8) products costs one call per interval)."""
+    rhs = np.zeros((K, d, c))
+    for a in range(0, K - 1, _RHS_BLOCK):
+        b = min(K - 1, a + _RHS_BLOCK)
+        v = None
+        for sums, table in parts:
+            vi = (sums[a:b].reshape(-1, 8) @ table.T).reshape(b - a, c, 2 * d)
+            v = vi if v is None else v + vi
+        rhs[a:b] += np.swapaxes(v[:, :, :d], 1, 2)
+        rhs[a + 1 : b + 1] += np.swapaxes(v[:, :, d:], 1, 2)
+    return rhs
 
 
 def log_likelihood(system: AxisSystem, U: FloatArray, x: FloatArray) -> float:
