@@ -53,8 +53,7 @@ estimate is no longer linear in the fixes (the turn rate comes from the fixes), 
 draws repeat the whole procedure on the fitted path plus fresh receiver error
 (``turn_refit_draws``); the linear draws of the turn-aware system alone covered the truth of a
 helix only 34 % of the time, those of the first pass 100 %, the repeated procedure 62-80 %.
-Logs with receiver velocity keep the constant-jerk prior (the draws do not simulate velocity
-error yet).
+With receiver velocity the draws add white velocity error of the stated 1-sigma.
 
 Wander without stated accuracy
 ------------------------------
@@ -597,6 +596,8 @@ class TurnRefit:
     first_factor: FloatArray
     fitted: FloatArray  # (n, A) model positions (path + wander) of the estimate at the fixes
     slow: float  # speed below which the turn rate is not trusted, m per knot interval
+    fitted_vel: FloatArray | None = None  # (n, A) the estimate's velocity at the fixes, m/s
+    vel_sd: FloatArray | None = None  # (n,) 1-sigma of a receiver velocity per axis, m/s
 
 
 def turn_refit_draws(system: "AxisSystem", refit: TurnRefit, white_var: FloatArray, model: NoiseModel,
@@ -614,12 +615,17 @@ def turn_refit_draws(system: "AxisSystem", refit: TurnRefit, white_var: FloatArr
         sig = design.sigma[:, None]
         e += ((1.0 - sig) * b[design.interval] + sig * b[design.interval + 1]).reshape(n, A, n_samples)
     cols = np.concatenate((refit.fitted[:, :, None], refit.fitted[:, :, None] + e), axis=2)  # draw 0: no error
-    first = solve_columns(refit.first, refit.first_factor, cols.reshape(n, -1))
+    vcols = None
+    if refit.fitted_vel is not None:  # receiver velocities: the estimate's plus white error
+        ev = rng.standard_normal((n, A, n_samples)) * np.where(np.isfinite(refit.vel_sd), refit.vel_sd, 0.0)[:, None, None]
+        vcols = np.concatenate((refit.fitted_vel[:, :, None], refit.fitted_vel[:, :, None] + ev), axis=2)
+    first = solve_columns(refit.first, refit.first_factor, cols.reshape(n, -1),
+                          None if vcols is None else vcols.reshape(n, -1))
     first = first.reshape(design.n_knots, refit.first.dim, A, n_samples + 1)
     out = np.empty((n_samples + 1, design.n_knots, system.dim, A))
     for j in range(n_samples + 1):
         sj = apply_turn_prior(refit.base, plan_turn_rate(first[..., j], refit.slow))
-        out[j] = solve_columns(sj, factor(sj), cols[:, :, j])
+        out[j] = solve_columns(sj, factor(sj), cols[:, :, j], None if vcols is None else vcols[:, :, j])
     return out[1:] - out[0]
 
 
@@ -1487,18 +1493,23 @@ def smooth_stretch(
         if not any(redo):
             break
     refits: list[TurnRefit | None] = [None] * len(prepared)
-    if turn_q_factor is not None and not has_vel:  # turn-aware plan prior (``choose_turn_prior``)
+    if turn_q_factor is not None:  # turn-aware plan prior (``choose_turn_prior``)
         axes, m, var, design = prepared[0]
         sys1, U1, x1, _ = results[0]
         slow = turn_slow_mps * design.h
         m = replace(m, snap_psd=m.snap_psd * turn_q_factor)
-        base = build_system(design, Y[:, list(axes)], np.where(w_h > 0, var / np.maximum(w_h, 1e-12), np.inf), m)
+        vel = {}
+        if has_vel:  # the velocities with their final robust weights, as in ``_smooth_group``
+            vel = {"vel": vel_en, "vel_var": np.where(w_vel > 0, vel_var / np.maximum(w_vel, 1e-12), np.inf)}
+        base = build_system(design, Y[:, list(axes)], np.where(w_h > 0, var / np.maximum(w_h, 1e-12), np.inf), m, **vel)
         sysm = apply_turn_prior(base, plan_turn_rate(x1, slow))
         U = factor(sysm)
         x = solve_mean(sysm, U)
         results[0] = (sysm, U, x, fitted(sysm, x))
         prepared[0] = (axes, m, var, design)
-        refits[0] = TurnRefit(sys1, base, U1, results[0][3], slow)
+        refits[0] = TurnRefit(sys1, base, U1, results[0][3], slow,
+                              fitted(sysm, x, velocity=True) if has_vel else None,
+                              np.sqrt(vel_var) if has_vel else None)
     groups = []
     for g, (axes, m, var, design) in enumerate(prepared):
         if len(cols[g]) > len(axes):  # carried columns: one more right-hand side, final weights
