@@ -134,3 +134,77 @@ def test_fixed_point_cells_of_huge_scaled_values_equal_python_integer_formatting
         digits = str(int(np.rint(abs(x) * 1e10)))
         want.append(("-" if x < 0 else "") + digits[:-10] + "." + digits[-10:])
     assert got == want
+
+
+def _dense_precision(t, h, w, q, wander_var=0.0, tau_s=60.0, wv=None, pos_sd=1e4):
+    """Posterior precision of the knot states, assembled densely from its definition: measurement
+    rows from scipy's BPoly.from_derivatives (the degree-7 Hermite piece matching p, p', p'',
+    p''' at both knots, in knot-interval units), the wander linear between knots, velocity rows
+    the piece's derivative; the constant-jerk prior from its closed-form discretisation
+    F = exp(A), Q_ij = q / ((3-i)! (3-j)! (7-i-j)) per unit interval; the AR(1) wander
+    exp(-h/tau) with innovation variance var (1 - exp(-2h/tau))."""
+    from math import factorial
+
+    from scipy.interpolate import BPoly
+
+    d = 4 + (wander_var > 0)
+    K = int(np.ceil((t[-1] - t[0]) / h - 1e-9)) + 1
+    u = (t - t[0]) / h
+    k = np.clip(np.floor(u).astype(int), 0, K - 2)
+    sig = u - k
+    basis = []
+    for b in range(8):  # unit derivative vectors at the left and right knots
+        yi = np.zeros(8)
+        yi[b] = 1.0
+        basis.append(BPoly.from_derivatives([0.0, 1.0], [yi[:4], yi[4:]]))
+    L = np.zeros((K * d, K * d))
+    for i in range(len(t)):
+        for rows, weight, position in ((lambda p: p(sig[i]), w[i], True),
+                                       (lambda p: p.derivative()(sig[i]), None if wv is None else wv[i], False)):
+            if weight is None:
+                continue
+            r = np.zeros(2 * d)
+            r[:4] = [rows(p) for p in basis[:4]]
+            r[d : d + 4] = [rows(p) for p in basis[4:]]
+            if d == 5 and position:  # the wander enters the position, not the velocity
+                r[4], r[9] = 1.0 - sig[i], sig[i]
+            s = slice(k[i] * d, k[i] * d + 2 * d)
+            L[s, s] += weight * np.outer(r, r)
+    F = np.eye(d)
+    F[:4, :4] = [[1.0 / factorial(j - i) if j >= i else 0.0 for j in range(4)] for i in range(4)]
+    Q = np.zeros((d, d))
+    Q[:4, :4] = [[q * h**7 / (factorial(3 - i) * factorial(3 - j) * (7 - i - j)) for j in range(4)] for i in range(4)]
+    if d == 5:
+        F[4, 4] = np.exp(-h / tau_s)
+        Q[4, 4] = wander_var * (1.0 - np.exp(-2.0 * h / tau_s))
+    Qi = np.linalg.inv(Q)
+    G = np.block([[F.T @ Qi @ F, -F.T @ Qi], [-Qi @ F, Qi]])
+    for kk in range(K - 1):
+        s = slice(kk * d, kk * d + 2 * d)
+        L[s, s] += G
+    L[np.arange(d), np.arange(d)] += [1.0 / pos_sd**2, 1e-6, 1e-6, 1e-6] + ([1.0 / wander_var] if d == 5 else [])
+    return L
+
+
+@pytest.mark.parametrize("wander, velocity", [(0.0, False), (2.0, False), (2.0, True)])
+def test_banded_precision_equals_the_dense_assembly_from_its_definition(wander, velocity):
+    # reference: _dense_precision (scipy BPoly Hermite rows, closed-form prior blocks), read
+    # off in LAPACK's upper band storage ab[u + i - j, j] = Lambda[i, j]
+    rng = np.random.default_rng(3)
+    t = np.sort(np.r_[rng.uniform(0.0, 9.0, 40), rng.uniform(12.0, 20.0, 30)])  # an empty stretch
+    h = 0.7
+    var = rng.uniform(0.5, 2.0, t.size)
+    vel = rng.normal(size=(t.size, 2)) if velocity else None
+    vel_var = rng.uniform(0.01, 0.05, t.size) if velocity else None
+    design = S.make_design(t, h)
+    system = S.build_system(design, rng.normal(size=(t.size, 2)), var, S.NoiseModel(0.3, 1.0, wander, 60.0),
+                            vel=vel, vel_var=vel_var)
+    dense = _dense_precision(t, h, 1.0 / var, 0.3, wander, 60.0, None if vel_var is None else 1.0 / (vel_var * h * h))
+    u = system.ab.shape[0] - 1
+    n = dense.shape[0]
+    want = np.zeros_like(system.ab)
+    for off in range(u + 1):  # super-diagonal 'off' of the dense matrix
+        want[u - off, off:] = np.diagonal(dense, off)
+    scale = np.abs(want).max()
+    assert system.ab.shape == (u + 1, n)
+    assert np.allclose(system.ab, want, rtol=1e-9, atol=1e-12 * scale)
