@@ -990,9 +990,9 @@ def noise_draws(
     rhs = np.zeros((K, d, cols))
     for a in range(0, K - 1, _RHS_BLOCK):  # small blocks of intervals: temporaries stay in cache
         c = min(K - 1, a + _RHS_BLOCK)
-        v = np.swapaxes(sums[a:c] @ B.T, 1, 2)  # (m, 2d, cols)
+        v = np.swapaxes((sums[a:c].reshape(-1, 8) @ B.T).reshape(c - a, cols, 2 * d), 1, 2)  # (m, 2d, cols)
         if sums_v is not None:
-            v = v + np.swapaxes(sums_v[a:c] @ Bv.T, 1, 2)
+            v = v + np.swapaxes((sums_v[a:c].reshape(-1, 8) @ Bv.T).reshape(c - a, cols, 2 * d), 1, 2)
         if b is not None:
             v = v + g0[a:c] * b[a:c] + g1[a:c] * b[a + 1 : c + 1]
         rhs[a:c] += v[:, :d]
