@@ -792,8 +792,7 @@ def _interval_legendre(system: AxisSystem, x: FloatArray, velocity: bool = False
     d = system.dim
     B = _vtables(d)[0] if velocity else _tables(d)[0]
     both = np.concatenate((x[:-1], x[1:]), axis=1)  # (K-1, 2d, A)
-    K1, A = len(both), both.shape[2]
-    return (np.ascontiguousarray(np.swapaxes(both, 1, 2)).reshape(K1 * A, -1) @ B).reshape(K1, A, -1)
+    return _stack_product(np.ascontiguousarray(np.swapaxes(both, 1, 2)), B)
 
 
 def fitted(system: AxisSystem, x: FloatArray, velocity: bool = False) -> FloatArray:
@@ -866,17 +865,27 @@ def solve_columns(system: AxisSystem, U: FloatArray, y: FloatArray, yv: FloatArr
     return cho_solve_banded((U, False), rhs.reshape(K * d, -1), check_finite=False).reshape(K, d, -1)
 
 
+def _stack_product(stack: FloatArray, table: FloatArray) -> FloatArray:
+    """(m, c, j) @ table (j, k) -> (m, c, k) as one 2-D matrix product (a stack of (c, j)
+    products costs one call per item). With an odd c numpy's stacked product does not go through
+    BLAS and rounds differently from the 2-D product; it is kept there, so every result stays bit
+    for bit what it was (the odd counts are the small up-axis group)."""
+    m, c, j = stack.shape
+    if c % 2:
+        return stack @ table
+    return (stack.reshape(m * c, j) @ table).reshape(m, c, -1)
+
+
 def _knot_rhs(parts: list, K: int, d: int, c: int) -> FloatArray:
     """Right-hand sides (K, d, c) from per-interval Legendre sums of weighted data: ``parts`` is
     a list of (sums (K-1, c, 8), row table (2d, 8)); interval k's vector (2d) goes half to knot k,
-    half to knot k+1. In blocks of ``_RHS_BLOCK`` intervals, each block's product one 2-D matrix
-    product (a stack of (c, 8) products costs one call per interval)."""
+    half to knot k+1. In blocks of ``_RHS_BLOCK`` intervals (``_stack_product``)."""
     rhs = np.zeros((K, d, c))
     for a in range(0, K - 1, _RHS_BLOCK):
         b = min(K - 1, a + _RHS_BLOCK)
         v = None
         for sums, table in parts:
-            vi = (sums[a:b].reshape(-1, 8) @ table.T).reshape(b - a, c, 2 * d)
+            vi = _stack_product(sums[a:b], table.T)
             v = vi if v is None else v + vi
         rhs[a:b] += np.swapaxes(v[:, :, :d], 1, 2)
         rhs[a + 1 : b + 1] += np.swapaxes(v[:, :, d:], 1, 2)
@@ -990,9 +999,9 @@ def noise_draws(
     rhs = np.zeros((K, d, cols))
     for a in range(0, K - 1, _RHS_BLOCK):  # small blocks of intervals: temporaries stay in cache
         c = min(K - 1, a + _RHS_BLOCK)
-        v = np.swapaxes((sums[a:c].reshape(-1, 8) @ B.T).reshape(c - a, cols, 2 * d), 1, 2)  # (m, 2d, cols)
+        v = np.swapaxes(_stack_product(sums[a:c], B.T), 1, 2)  # (m, 2d, cols)
         if sums_v is not None:
-            v = v + np.swapaxes((sums_v[a:c].reshape(-1, 8) @ Bv.T).reshape(c - a, cols, 2 * d), 1, 2)
+            v = v + np.swapaxes(_stack_product(sums_v[a:c], Bv.T), 1, 2)
         if b is not None:
             v = v + g0[a:c] * b[a:c] + g1[a:c] * b[a + 1 : c + 1]
         rhs[a:c] += v[:, :d]
