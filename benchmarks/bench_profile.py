@@ -31,6 +31,7 @@ SPLIT = (
     ("survey.smooth", "factor"), ("survey.smooth", "fitted"), ("survey.smooth", "resmooth_path"),
     ("survey.smooth", "solve_columns"), ("survey.smooth", "local_grade"),
     ("survey.profile_build", "_uncertainty"), ("survey.smooth", "noise_draws"),
+    ("survey.smooth", "turn_refit_draws"), ("survey.smooth", "apply_turn_prior"),
     ("survey.profile_build", "_chainage_table"), ("survey.profile_build", "_stations"),
     ("survey.smooth", "evaluate_intervals"), ("survey.smooth", "_interval_sums"),
     ("survey.profile_build", "_finish"), ("survey.profile_export", "write_csv"),
