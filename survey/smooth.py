@@ -692,11 +692,7 @@ def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, 
     ab = _band(moments, d, K, A, Qinv, Bo, p0)
     rhs = _knot_rhs(parts, K, d, c)
     logdet_prior = float(np.sum(np.log(p0)) + (K - 1) * logdet_q)
-    gain = None
-    if d > N_PATH:  # the wander's gain for noise_draws, from the moments already at hand
-        _, _, W0, W1 = _tables(d)
-        gain = (moments[0][1] @ W0, moments[0][1] @ W1)
-    return AxisSystem(ab, rhs.reshape(K * d, -1), d, F, Qinv, logdet_prior, p0, w, yy, design, m, gain, wv=wv, yv=yv)
+    return AxisSystem(ab, rhs.reshape(K * d, -1), d, F, Qinv, logdet_prior, p0, w, yy, design, m, wv=wv, yv=yv)
 
 
 #: Knot intervals per block of the band assembly: the block's temporaries stay a few MB (fresh
