@@ -700,22 +700,27 @@ def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, 
 _BAND_BLOCK = 8192
 
 
-def _band_tables(C: FloatArray, d: int) -> tuple[FloatArray, FloatArray]:
-    """(TL, TR) (15, 2d * d): Legendre moments of a knot interval's fixes -> its data terms in
-    the band layout of its left knot and of its right knot. Band slot (r, j) of knot k holds
-    Lambda[k d + j - (2d - 1) + r, k d + j]: an entry of knot k's own block when j + r >= 2d - 1,
-    else of the block between knots k - 1 and k. Unused slots have zero columns."""
+_BAND_ROWS: dict[int, tuple[NDArray[np.int64], NDArray[np.int64]]] = {}
+
+
+def _band_rows(d: int) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """(left, right) (2d, d) row indices into an interval's data-term entries (2d x 2d, flattened;
+    4 d^2 = an all-zero row) for the band layout of its left and its right knot. Band slot
+    (r, j) of knot k holds Lambda[k d + j - (2d - 1) + r, k d + j]: an entry of knot k's own
+    block when j + r >= 2d - 1, else of the block between knots k - 1 and k."""
+    if d in _BAND_ROWS:
+        return _BAND_ROWS[d]
     u = 2 * d - 1
-    C = C.reshape(N_LEG, 2 * d, 2 * d)
-    TL = np.zeros((N_LEG, u + 1, d))
-    TR = np.zeros((N_LEG, u + 1, d))
+    left = np.full((u + 1, d), 4 * d * d)
+    right = np.full((u + 1, d), 4 * d * d)
     for i in range(d):
         for j in range(d):
             if i <= j:  # own block of the interval's left knot and of its right knot (upper triangle)
-                TL[:, u + i - j, j] = C[:, i, j]
-                TR[:, u + i - j, j] = C[:, d + i, d + j]
-            TR[:, u + i - j - d, j] = C[:, i, d + j]  # between the two knots
-    return TL.reshape(N_LEG, -1), TR.reshape(N_LEG, -1)
+                left[u + i - j, j] = i * 2 * d + j
+                right[u + i - j, j] = (d + i) * 2 * d + d + j
+            right[u + i - j - d, j] = i * 2 * d + d + j  # between the two knots
+    _BAND_ROWS[d] = (left, right)
+    return left, right
 
 
 def _band(moments: list, d: int, K: int, A: FloatArray, Qinv: FloatArray, Bo: FloatArray,
@@ -726,35 +731,30 @@ def _band(moments: list, d: int, K: int, A: FloatArray, Qinv: FloatArray, Bo: Fl
 
     Knot k's own block is (left-knot data of interval k + F^T Q^-1 F) + (right-knot data of
     interval k-1 + Q^-1) (+ the first knot's prior); the block between knots k and k+1 is
-    interval k's cross data - F^T Q^-1. Assembled ``_BAND_BLOCK`` intervals at a time directly
-    in the band layout (``_band_tables``), each block's left and right parts added into the
-    band, which starts at 0 (x + y is exact in either order, so the matrix is the one the
-    entry-by-entry sums give)."""
+    interval k's cross data - F^T Q^-1. Assembled ``_BAND_BLOCK`` intervals at a time: the
+    block's data-term entries (4 d^2 rows, the same products entry by entry as for all intervals
+    at once), gathered into the band layout (``_band_rows``) of the left and of the right knots
+    and added into the band, which starts at 0 (x + y is exact in either order): the matrix is
+    bit for bit the one the entry-by-entry sums give, without a (4 d^2, K) temporary."""
     u = 2 * d - 1
-    Lc = np.zeros((u + 1, d))
-    Rc = np.zeros((u + 1, d))
-    for i in range(d):
-        for j in range(d):
-            if i <= j:
-                Lc[u + i - j, j] = A[i, j]
-                Rc[u + i - j, j] = Qinv[i, j]
-            Rc[u + i - j - d, j] = Bo[i, j]
-    tables = [(_band_tables(C, d), mom) for C, mom in moments]
+    left, right = _band_rows(d)
+    prior = np.zeros((2 * d, 2 * d))  # the prior's part of an interval's term, same entry order
+    prior[:d, :d], prior[d:, d:], prior[:d, d:] = A, Qinv, Bo
+    prior = np.append(prior.ravel(), 0.0)
+    cl, cr = prior[left], prior[right]
+    tables = [(C.reshape(N_LEG, 4 * d * d).T, mom) for C, mom in moments]
     ab = np.zeros((u + 1, K * d))
     abk = ab.reshape(u + 1, K, d)  # a view: slot row, knot, state
     for a in range(0, K - 1, _BAND_BLOCK):
         c = min(K - 1, a + _BAND_BLOCK)
-        for side, const, at in ((0, Lc, slice(a, c)), (1, Rc, slice(a + 1, c + 1))):
-            g = None
-            for T, mom in tables:
-                gi = mom[a:c] @ T[side]  # (c - a, 2d * d)
-                if g is None:
-                    g = gi
-                else:
-                    g += gi
-            g = g.reshape(c - a, u + 1, d)
-            g += const
-            abk[:, at] += g.transpose(1, 0, 2)
+        g = tables[0][0] @ tables[0][1][a:c].T  # (4 d^2, c - a): every row one entry
+        for Ct, mom in tables[1:]:
+            g += Ct @ mom[a:c].T
+        g = np.concatenate((g, np.zeros((1, c - a))))  # row 4 d^2: unused slots
+        for rows, const, at in ((left, cl, slice(a, c)), (right, cr, slice(a + 1, c + 1))):
+            part = g[rows]  # (2d, d, c - a)
+            part += const[:, :, None]
+            abk[:, at] += part.transpose(0, 2, 1)
     for i in range(d):
         ab[u, i] += p0[i]
     return ab
