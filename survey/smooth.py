@@ -600,8 +600,8 @@ class TurnRefit:
     vel_sd: FloatArray | None = None  # (n,) 1-sigma of a receiver velocity per axis, m/s
 
 
-def turn_refit_draws(system: "AxisSystem", refit: TurnRefit, white_var: FloatArray, model: NoiseModel,
-                     n_samples: int, rng: np.random.Generator) -> FloatArray:
+def turn_refit_draws(system: "AxisSystem", U: FloatArray, refit: TurnRefit, white_var: FloatArray,
+                     model: NoiseModel, n_samples: int, rng: np.random.Generator) -> FloatArray:
     """Sampling error of a turn-aware estimate, (n_samples, K, dim, A), by repeating the
     procedure (``TurnRefit``); one banded factorisation per draw."""
     design = system.design
@@ -625,7 +625,11 @@ def turn_refit_draws(system: "AxisSystem", refit: TurnRefit, white_var: FloatArr
     out = np.empty((n_samples + 1, design.n_knots, system.dim, A))
     for j in range(n_samples + 1):
         sj = apply_turn_prior(refit.base, plan_turn_rate(first[..., j], refit.slow))
-        out[j] = solve_columns(sj, factor(sj), cols[:, :, j], None if vcols is None else vcols[:, :, j])
+        try:
+            Uj = factor(sj)
+        except np.linalg.LinAlgError:  # not positive definite in rounding: this draw keeps the turn rates
+            sj, Uj = system, U
+        out[j] = solve_columns(sj, Uj, cols[:, :, j], None if vcols is None else vcols[:, :, j])
     return out[1:] - out[0]
 
 
@@ -1284,7 +1288,8 @@ class AxisGroup:
         conv = self.h ** -np.arange(N_PATH)
         na = len(self.axes)
         if self.turn_refit is not None:
-            dev = turn_refit_draws(self.system, self.turn_refit, self.white_var, self.model, n_samples, rng)
+            dev = turn_refit_draws(self.system, self.factor, self.turn_refit, self.white_var, self.model,
+                                   n_samples, rng)
         else:
             dev = noise_draws(self.system, self.factor, self.white_var, self.model, n_samples, rng, na)
         out = np.repeat(self.states[None], n_samples, axis=0)
@@ -1502,19 +1507,25 @@ def smooth_stretch(
         axes, m, var, design = prepared[0]
         sys1, U1, x1, _ = results[0]
         slow = turn_slow_mps * design.h
-        m = replace(m, snap_psd=m.snap_psd * turn_q_factor)
+        # the smaller snap density is clamped like the fitted one (no window beyond the stretch)
+        m = clamp_snap(replace(m, snap_psd=m.snap_psd * turn_q_factor), float(np.median(var[np.isfinite(var)])),
+                       interval, span)
         vel = {}
         if has_vel:  # the velocities with their final robust weights, as in ``_smooth_group``
             vel = {"vel": vel_en, "vel_var": np.where(w_vel > 0, vel_var / np.maximum(w_vel, 1e-12), np.inf)}
         base = build_system(design, Y[:, list(axes)], np.where(w_h > 0, var / np.maximum(w_h, 1e-12), np.inf), m, **vel)
         sysm = apply_turn_prior(base, plan_turn_rate(x1, slow))
-        U = factor(sysm)
-        x = solve_mean(sysm, U)
-        results[0] = (sysm, U, x, fitted(sysm, x))
-        prepared[0] = (axes, m, var, design)
-        refits[0] = TurnRefit(sys1, base, U1, results[0][3], slow,
-                              fitted(sysm, x, velocity=True) if has_vel else None,
-                              np.sqrt(vel_var) if has_vel else None)
+        try:
+            U = factor(sysm)
+        except np.linalg.LinAlgError:  # numerically not positive definite: keep the constant-jerk estimate
+            U = None
+        if U is not None:
+            x = solve_mean(sysm, U)
+            results[0] = (sysm, U, x, fitted(sysm, x))
+            prepared[0] = (axes, m, var, design)
+            refits[0] = TurnRefit(sys1, base, U1, results[0][3], slow,
+                                  fitted(sysm, x, velocity=True) if has_vel else None,
+                                  np.sqrt(vel_var) if has_vel else None)
     groups = []
     for g, (axes, m, var, design) in enumerate(prepared):
         if len(cols[g]) > len(axes):  # carried columns: one more right-hand side, final weights
