@@ -544,93 +544,147 @@ def plan_turn_rate(x: FloatArray, slow_per_interval: float, max_turn: float = 1.
     return np.minimum(np.sqrt(0.5 * (w2[:-1] + w2[1:])), max_turn)
 
 
-def apply_turn_prior(system: "AxisSystem", turn: FloatArray) -> "AxisSystem":
-    """The same system with the turn-aware path prior (``_turn_unit_blocks``) at the turn rates
-    ``turn`` (K-1,) rad per knot interval in place of its constant-jerk prior, at the same snap
-    density q of its model: the per-interval differences of the prior blocks are added to the
-    band; ``F``/``Qinv`` become per interval, (K-1, d, d). The wander state is unchanged."""
-    if system.F.ndim != 2:
-        raise ValueError("apply_turn_prior needs a system with the constant-jerk prior")
-    d, K = system.dim, system.design.n_knots
-    q = system.model.snap_psd * system.design.h**7
-    F0, Qi0 = system.F, system.Qinv
+def _turn_tables(turn: FloatArray, q: float) -> tuple[FloatArray, FloatArray, FloatArray, NDArray[np.int64]]:
+    """Path blocks of the turn-aware prior for turn rates ``turn`` (K-1,) rad per interval at
+    snap density ``q`` (per knot interval units): F (u, 4, 4), Q^-1 (u, 4, 4) and log det Q^-1
+    (u,) per distinct rate on the ``TURN_STEP`` grid, and the index (K-1,) of each interval's."""
     keys = np.rint(np.abs(turn) / TURN_STEP).astype(np.int64)
     uniq, inv = np.unique(keys, return_inverse=True)
-    Fu = np.repeat(F0[None], len(uniq), axis=0)
-    Qu = np.repeat(Qi0[None], len(uniq), axis=0)
+    Fu = np.empty((len(uniq), N_PATH, N_PATH))
+    Qu = np.empty((len(uniq), N_PATH, N_PATH))
     ld = np.empty(len(uniq))
     for i, k in enumerate(uniq):  # one block per distinct turn rate on the grid
         F, Qinv, logdet = _turn_unit_blocks(int(k))
-        Fu[i, :N_PATH, :N_PATH] = F
-        Qu[i, :N_PATH, :N_PATH] = Qinv / q
-        ld[i] = logdet - 4.0 * np.log(q)
+        Fu[i], Qu[i], ld[i] = F, Qinv / q, logdet - 4.0 * np.log(q)
+    return Fu, Qu, ld, inv
+
+
+def apply_turn_prior(system: "AxisSystem", turn: FloatArray, overwrite: bool = False) -> "AxisSystem":
+    """The same system with the turn-aware path prior (``_turn_unit_blocks``) at the turn rates
+    ``turn`` (K-1,) rad per knot interval in place of its constant-jerk prior, at the same snap
+    density q of its model: the differences of the prior blocks are added to the band, one
+    table per distinct turn rate gathered per band slot. ``turn_blocks`` holds the tables; ``F``
+    and ``Qinv`` stay the constant-jerk ones (the wander state is unchanged). ``overwrite``: the
+    band of ``system`` is changed in place (the caller no longer needs it)."""
+    if system.turn_blocks is not None:
+        raise ValueError("apply_turn_prior needs a system with the constant-jerk prior")
+    d, K = system.dim, system.design.n_knots
+    q = system.model.snap_psd * system.design.h**7
+    F0, Qi0 = system.F[:N_PATH, :N_PATH], system.Qinv[:N_PATH, :N_PATH]
+    Fu, Qu, ld, inv = _turn_tables(turn, q)
     FtQ = np.swapaxes(Fu, 1, 2) @ Qu
-    dA = (FtQ @ Fu - F0.T @ Qi0 @ F0)[inv]  # the differences per distinct rate, then per interval
-    dQ = (Qu - Qi0)[inv]
-    dB = (F0.T @ Qi0 - FtQ)[inv]
+    dA = FtQ @ Fu - F0.T @ Qi0 @ F0  # per distinct rate
+    dQ = Qu - Qi0
+    dB = F0.T @ Qi0 - FtQ
     u = 2 * d - 1
-    ab = system.ab.copy()
+    ab = system.ab if overwrite else system.ab.copy()
     abk = ab.reshape(u + 1, K, d)
     for i in range(N_PATH):
         for j in range(N_PATH):
             if i <= j:
-                abk[u + i - j, :-1, j] += dA[:, i, j]  # own block of the interval's left knot
-                abk[u + i - j, 1:, j] += dQ[:, i, j]  # own block of its right knot
-            abk[u + i - j - d, 1:, j] += dB[:, i, j]  # between the two knots
+                abk[u + i - j, :-1, j] += dA[inv, i, j]  # own block of the interval's left knot
+                abk[u + i - j, 1:, j] += dQ[inv, i, j]  # own block of its right knot
+            abk[u + i - j - d, 1:, j] += dB[inv, i, j]  # between the two knots
     logdet0 = -4.0 * np.log(q) - _LOGDET_K  # the constant-jerk path block's log det Q^-1
     logdet_prior = system.logdet_prior + float(np.sum(ld[inv])) - len(turn) * logdet0
-    return replace(system, ab=ab, F=Fu[inv], Qinv=Qu[inv], logdet_prior=logdet_prior, wander_gain=None)
+    return replace(system, ab=ab, logdet_prior=logdet_prior, turn_blocks=(Fu, Qu, inv))
+
+
+def _interval_blocks_of(system: "AxisSystem") -> tuple[FloatArray, FloatArray]:
+    """The prior's F and Q^-1 per knot interval, (K-1, d, d) (for the likelihood of small
+    systems; a constant-jerk system gives its one block, (d, d))."""
+    if system.turn_blocks is None:
+        return system.F, system.Qinv
+    Fu, Qu, inv = system.turn_blocks
+    F = np.repeat(system.F[None], len(inv), axis=0)
+    Q = np.repeat(system.Qinv[None], len(inv), axis=0)
+    F[:, :N_PATH, :N_PATH] = Fu[inv]
+    Q[:, :N_PATH, :N_PATH] = Qu[inv]
+    return F, Q
+
+
+def _path_prior_times(Fu: FloatArray, Qu: FloatArray, inv: NDArray[np.int64], x: FloatArray) -> FloatArray:
+    """The path prior's precision times knot states: (K, 4, c) from path-block tables F, Q^-1
+    (u, 4, 4) with each interval's index ``inv`` (K-1,) and states x (K, 4, c). With
+    r_k = x_(k+1) - F_k x_k the prior's quadratic form is sum r_k^T Q_k^-1 r_k, so knot k gets
+    -F_k^T Q_k^-1 r_k and knot k+1 gets Q_k^-1 r_k. Entry by entry over the 4 x 4 blocks (16
+    gathered columns per product; a stack of 4 x 4 matrix products costs more per interval)."""
+    def times(M, v, transpose=False):
+        out = np.zeros_like(v)
+        for a in range(N_PATH):
+            for b in range(N_PATH):
+                m = M[:, b, a] if transpose else M[:, a, b]
+                if np.any(m):
+                    out[:, a] += m[inv][:, None] * v[:, b]
+        return out
+
+    r = x[1:] - times(Fu, x[:-1])
+    qr = times(Qu, r)
+    out = np.zeros_like(x)
+    out[1:] += qr
+    out[:-1] -= times(Fu, qr, transpose=True)
+    return out
 
 
 @dataclass
 class TurnRefit:
-    """What the sampling-error draws of a turn-aware estimate need. The estimate is not linear
-    in the fixes (its turn rate comes from a constant-jerk first pass of the same fixes), so
-    every draw repeats the whole procedure on the fitted positions plus a fresh receiver error
-    (a parametric bootstrap, Efron & Tibshirani 1993, ch. 6): first pass, turn rate, turn-aware
-    pass. A draw's deviation is taken from the same procedure run on the fitted positions
-    alone."""
+    """What the sampling-error draws of a turn-aware estimate need (``turn_refit_draws``)."""
 
-    first: "AxisSystem"  # the constant-jerk system of the first pass (same fixes and weights)
-    base: "AxisSystem"  # the constant-jerk system at the turn-aware pass's snap density
-    first_factor: FloatArray
-    fitted: FloatArray  # (n, A) model positions (path + wander) of the estimate at the fixes
+    first_factor: FloatArray  # of the constant-jerk first pass (same fixes and weights), float32
+    first_states: FloatArray  # (K, d, A) its estimate, per knot-interval units
+    states: FloatArray  # (K, d, A) the turn-aware estimate
+    turn: FloatArray  # (K-1,) the turn rates of its prior, rad per interval
     slow: float  # speed below which the turn rate is not trusted, m per knot interval
-    fitted_vel: FloatArray | None = None  # (n, A) the estimate's velocity at the fixes, m/s
     vel_sd: FloatArray | None = None  # (n,) 1-sigma of a receiver velocity per axis, m/s
+    prior_states: FloatArray | None = None  # (K, 4, A) the prior's precision times the estimate
 
 
 def turn_refit_draws(system: "AxisSystem", U: FloatArray, refit: TurnRefit, white_var: FloatArray,
                      model: NoiseModel, n_samples: int, rng: np.random.Generator) -> FloatArray:
-    """Sampling error of a turn-aware estimate, (n_samples, K, dim, A), by repeating the
-    procedure (``TurnRefit``); one banded factorisation per draw."""
+    """Sampling error of a turn-aware estimate, (n_samples, K, dim, A).
+
+    The estimate is not linear in the fixes: its turn rates come from a constant-jerk first
+    pass of the same fixes. Each draw takes a fresh receiver error e (white of ``white_var``,
+    the model's Gauss-Markov wander on the knot grid, white velocity error of ``vel_sd``), the
+    first pass's response to it (hence the draw's turn rates omega'), and the turn-aware
+    smoother's, to first order in both (a linearised parametric bootstrap; Efron & Tibshirani
+    1993, ch. 6 and 21): with Lambda the turn-aware posterior precision at the estimate's rates
+    and Delta the change of its prior precision at omega',
+    x(omega', y + e) - x(omega, y) ~ Lambda^-1 H^T W e - Lambda^-1 Delta x_hat.
+    One right-hand side per draw (the first pass has the same fixes and weights), batched
+    solves with the two factors and one more with Lambda's: no factorisation per draw."""
     design = system.design
-    n, A = refit.fitted.shape
+    n, K = len(design.interval), design.n_knots
+    A = refit.states.shape[2]
     e = rng.standard_normal((n, A, n_samples)) * np.sqrt(np.where(np.isfinite(white_var), white_var, 0.0))[:, None, None]
     if model.wander_var_m2 > 0:  # the Gauss-Markov wander on the knot grid, linear between knots
         phi = float(np.exp(-design.h / model.wander_tau_s))
-        z = rng.standard_normal((design.n_knots, A * n_samples)) * np.sqrt(model.wander_var_m2 * (1.0 - phi**2))
+        z = rng.standard_normal((K, A * n_samples)) * np.sqrt(model.wander_var_m2 * (1.0 - phi**2))
         z[0] *= 1.0 / np.sqrt(1.0 - phi**2)
         b = _ar1(z, phi)
         sig = design.sigma[:, None]
         e += ((1.0 - sig) * b[design.interval] + sig * b[design.interval + 1]).reshape(n, A, n_samples)
-    cols = np.concatenate((refit.fitted[:, :, None], refit.fitted[:, :, None] + e), axis=2)  # draw 0: no error
-    vcols = None
-    if refit.fitted_vel is not None:  # receiver velocities: the estimate's plus white error
-        ev = rng.standard_normal((n, A, n_samples)) * np.where(np.isfinite(refit.vel_sd), refit.vel_sd, 0.0)[:, None, None]
-        vcols = np.concatenate((refit.fitted_vel[:, :, None], refit.fitted_vel[:, :, None] + ev), axis=2)
-    first = solve_columns(refit.first, refit.first_factor, cols.reshape(n, -1),
-                          None if vcols is None else vcols.reshape(n, -1))
-    first = first.reshape(design.n_knots, refit.first.dim, A, n_samples + 1)
-    out = np.empty((n_samples + 1, design.n_knots, system.dim, A))
-    for j in range(n_samples + 1):
-        sj = apply_turn_prior(refit.base, plan_turn_rate(first[..., j], refit.slow))
-        try:
-            Uj = factor(sj)
-        except np.linalg.LinAlgError:  # not positive definite in rounding: this draw keeps the turn rates
-            sj, Uj = system, U
-        out[j] = solve_columns(sj, Uj, cols[:, :, j], None if vcols is None else vcols[:, :, j])
-    return out[1:] - out[0]
+    e = e.reshape(n, -1)
+    ev = None
+    if refit.vel_sd is not None:
+        ev = (rng.standard_normal((n, A, n_samples)) * np.where(np.isfinite(refit.vel_sd), refit.vel_sd, 0.0)[:, None, None]).reshape(n, -1)
+    rhs = _columns_rhs(system, e, ev)  # the first pass's too: same fixes, weights and data terms
+    del e, ev
+    d = system.dim
+    q = system.model.snap_psd * design.h**7
+    xp = refit.states[:, :N_PATH, :]
+    if refit.prior_states is None:  # the same for every batch of draws
+        refit.prior_states = _path_prior_times(*system.turn_blocks, xp)
+    U1 = refit.first_factor.astype(float)
+    out = np.empty((n_samples, K, d, A))
+    for j in range(n_samples):  # one draw at a time: bounded temporaries on long logs
+        rj = rhs[:, :, j::n_samples].reshape(K * d, A)
+        first = cho_solve_banded((U1, False), rj, check_finite=False).reshape(K, d, A) + refit.first_states
+        Fj, Qj, _, ij = _turn_tables(plan_turn_rate(first, refit.slow), q)
+        rj = rj.copy()
+        rj.reshape(K, d, A)[:, :N_PATH] -= _path_prior_times(Fj, Qj, ij, xp) - refit.prior_states
+        out[j] = cho_solve_banded((U, False), rj, check_finite=False).reshape(K, d, A)
+    return out
 
 
 @dataclass
@@ -654,6 +708,9 @@ class AxisSystem:
     #: weights (n,) = 1 / variance (0 = none) and values (n, A) = velocity x h.
     wv: FloatArray | None = None
     yv: FloatArray | None = None
+    #: A turn-aware prior (``apply_turn_prior``): path-block tables F, Q^-1 (u, 4, 4) per
+    #: distinct turn rate and the index (K-1,) of each interval's; None = constant jerk.
+    turn_blocks: tuple | None = None
 
 
 def build_system(design: Design, y: FloatArray, var: FloatArray, m: NoiseModel, pos_sd: float = 1e4,
@@ -842,6 +899,13 @@ def solve_columns(system: AxisSystem, U: FloatArray, y: FloatArray, yv: FloatArr
     data ``y`` (n, c) at the same fixes: only the right-hand side changes. Fixes left out of the
     system (weight 0) are left out here too. A system with velocity measurements needs the
     velocities ``yv`` (n, c), m/s, of the other data too."""
+    K, d = system.design.n_knots, system.dim
+    rhs = _columns_rhs(system, y, yv)
+    return cho_solve_banded((U, False), rhs.reshape(K * d, -1), check_finite=False).reshape(K, d, -1)
+
+
+def _columns_rhs(system: AxisSystem, y: FloatArray, yv: FloatArray | None = None) -> FloatArray:
+    """Right-hand sides (K, d, c) H^T W y of other data at the system's fixes (``solve_columns``)."""
     d = system.dim
     w, c = system.w, y.shape[1]
 
@@ -860,9 +924,7 @@ def solve_columns(system: AxisSystem, U: FloatArray, y: FloatArray, yv: FloatArr
             return np.where(wv[a:b, None] > 0, yv[a:b] * h, 0.0) * wv[a:b, None]
 
         parts.append((_interval_sums(system.design, data_v, 8, c), _vtables(d)[0]))
-    K = system.design.n_knots
-    rhs = _knot_rhs(parts, K, d, c)
-    return cho_solve_banded((U, False), rhs.reshape(K * d, -1), check_finite=False).reshape(K, d, -1)
+    return _knot_rhs(parts, system.design.n_knots, d, c)
 
 
 def _stack_product(stack: FloatArray, table: FloatArray) -> FloatArray:
@@ -901,11 +963,12 @@ def log_likelihood(system: AxisSystem, U: FloatArray, x: FloatArray) -> float:
     """
     A = system.rhs.shape[1]
     res = system.y - fitted(system, x)
-    per = "k" if system.F.ndim == 3 else ""  # per-interval prior blocks (``apply_turn_prior``)
-    e = x[1:] - np.einsum(f"{per}ij,kjA->kiA", system.F, x[:-1])
+    F, Qinv = _interval_blocks_of(system)
+    per = "k" if F.ndim == 3 else ""  # per-interval prior blocks (``apply_turn_prior``)
+    e = x[1:] - np.einsum(f"{per}ij,kjA->kiA", F, x[:-1])
     quad = (
         float(np.sum(system.w[:, None] * res**2))
-        + float(np.einsum(f"kiA,{per}ij,kjA->", e, system.Qinv, e))
+        + float(np.einsum(f"kiA,{per}ij,kjA->", e, Qinv, e))
         + float(np.sum(system.prior0[:, None] * x[0] ** 2))
     )
     ok = system.w > 0
@@ -1233,7 +1296,7 @@ def choose_turn_prior(pieces: list[tuple[FloatArray, FloatArray, FloatArray]], m
         base_ll += log_likelihood(sysm, U, x)
         turn = plan_turn_rate(x, slow_mps * design.h)
         for i, f in enumerate(factors):
-            st = apply_turn_prior(build_system(design, Y, var, replace(m, snap_psd=m.snap_psd * f)), turn)
+            st = apply_turn_prior(build_system(design, Y, var, replace(m, snap_psd=m.snap_psd * f)), turn, overwrite=True)
             try:
                 Ut = factor(st)
             except np.linalg.LinAlgError:
@@ -1479,6 +1542,8 @@ def smooth_stretch(
                 w = w_h if axes[0] < 2 else w_v
                 extra = (vel_en, vel_var, w_vel) if has_vel and axes[0] < 2 else ()
                 results[g] = _smooth_group(Y[:, list(axes)], var, w, m, design, *extra)
+                if g == 0:
+                    weights_h = (w, w_vel)  # the weights of the plan estimate (turn-aware pass)
         if it == robust_iterations:
             break
         res_h = Y[:, :2] - results[0][3][:, :2]
@@ -1505,16 +1570,19 @@ def smooth_stretch(
     refits: list[TurnRefit | None] = [None] * len(prepared)
     if turn_q_factor is not None:  # turn-aware plan prior (``choose_turn_prior``)
         axes, m, var, design = prepared[0]
-        sys1, U1, x1, _ = results[0]
+        _, U1, x1, _ = results[0]
         slow = turn_slow_mps * design.h
         # the smaller snap density is clamped like the fitted one (no window beyond the stretch)
         m = clamp_snap(replace(m, snap_psd=m.snap_psd * turn_q_factor), float(np.median(var[np.isfinite(var)])),
                        interval, span)
+        w, wv = weights_h  # those of the first pass: its draws share their right-hand sides
         vel = {}
-        if has_vel:  # the velocities with their final robust weights, as in ``_smooth_group``
-            vel = {"vel": vel_en, "vel_var": np.where(w_vel > 0, vel_var / np.maximum(w_vel, 1e-12), np.inf)}
-        base = build_system(design, Y[:, list(axes)], np.where(w_h > 0, var / np.maximum(w_h, 1e-12), np.inf), m, **vel)
-        sysm = apply_turn_prior(base, plan_turn_rate(x1, slow))
+        if has_vel:  # the velocities with their robust weights, as in ``_smooth_group``
+            vel = {"vel": vel_en, "vel_var": np.where(wv > 0, vel_var / np.maximum(wv, 1e-12), np.inf)}
+        base = build_system(design, Y[:, list(axes)], np.where(w > 0, var / np.maximum(w, 1e-12), np.inf), m, **vel)
+        turn = plan_turn_rate(x1, slow)
+        sysm = apply_turn_prior(base, turn, overwrite=True)
+        del base
         try:
             U = factor(sysm)
         except np.linalg.LinAlgError:  # numerically not positive definite: keep the constant-jerk estimate
@@ -1523,9 +1591,9 @@ def smooth_stretch(
             x = solve_mean(sysm, U)
             results[0] = (sysm, U, x, fitted(sysm, x))
             prepared[0] = (axes, m, var, design)
-            refits[0] = TurnRefit(sys1, base, U1, results[0][3], slow,
-                                  fitted(sysm, x, velocity=True) if has_vel else None,
-                                  np.sqrt(vel_var) if has_vel else None)
+            # the first pass's factor is kept in single precision: only the draws' turn rates use it
+            refits[0] = TurnRefit(U1.astype(np.float32), x1, x, turn, slow, np.sqrt(vel_var) if has_vel else None)
+        del U1, sysm, U  # the first pass's system and factor are freed (results hold what is kept)
     groups = []
     for g, (axes, m, var, design) in enumerate(prepared):
         if len(cols[g]) > len(axes):  # carried columns: one more right-hand side, final weights
