@@ -48,12 +48,18 @@ with which snap density, is chosen by marginal likelihood on the fit pieces
 (``choose_turn_prior``, kept only with a gain of ``TURN_MIN_GAIN``). Measured (accuracy
 benchmark, seeds 2024-2028): helix RTK kappa 0.19 % -> 0.04 %, tau 1.84 % -> 0.11 %; phone helix
 kappa 4.5 % -> 3.1 %, tau 13 % -> 9.6 %; phone switchbacks radius 39 % -> 35 % (by time 23 % ->
-26 %), chainage 5.4 % -> 2.3 %; road drives keep the constant-jerk prior (gain about 2). The
+26 %), chainage 5.4 % -> 2.3 %; the benchmark's road of 400 m arcs keeps the constant-jerk
+prior (gain about 2), a drive with arcs of 40-600 m takes it (gain 21). The
 estimate is no longer linear in the fixes (the turn rate comes from the fixes), so its 1-sigma
-draws repeat the whole procedure on the fitted path plus fresh receiver error
-(``turn_refit_draws``); the linear draws of the turn-aware system alone covered the truth of a
-helix only 34 % of the time, those of the first pass 100 %, the repeated procedure 62-80 %.
-With receiver velocity the draws add white velocity error of the stated 1-sigma.
+draws follow the whole procedure to first order (``turn_refit_draws``): each draw's receiver
+error through the first pass gives its turn rates, and their effect on the turn-aware estimate
+enters as a change of the prior's precision (one solve, no factorisation per draw). The linear
+draws of the turn-aware system alone covered the truth of a helix only 34 % of the time, those
+of the first pass 100 %; the exact repeated procedure (a factorisation per draw, three times
+slower at 1M fixes) 62-75 %, the linearised one 64-82 % (``tests/test_geometry.py`` coverage
+set-up, seed sets 100, 200, 300). With receiver velocity the draws add white velocity error of
+the stated 1-sigma. On a 1M-fix drive where the likelihood chooses it, the turn-aware prior
+costs about 2.5 s more than the constant-jerk one (benchmarks/bench_scale.py).
 
 Wander without stated accuracy
 ------------------------------
