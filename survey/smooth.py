@@ -620,15 +620,24 @@ def _path_prior_times(Fu: FloatArray, Qu: FloatArray, inv: NDArray[np.int64], x:
     """The path prior's precision times knot states: (K, 4, c) from path-block tables F, Q^-1
     (u, 4, 4) with each interval's index ``inv`` (K-1,) and states x (K, 4, c). With
     r_k = x_(k+1) - F_k x_k the prior's quadratic form is sum r_k^T Q_k^-1 r_k, so knot k gets
-    -F_k^T Q_k^-1 r_k and knot k+1 gets Q_k^-1 r_k. Computed on (c, 4) rows (x^T F^T): numpy's
-    stacked product is several times faster on those than on (4, c) columns."""
-    X = np.ascontiguousarray(np.swapaxes(x, 1, 2))  # (K, c, 4)
-    r = X[1:] - X[:-1] @ np.swapaxes(Fu, 1, 2)[inv]
-    qr = r @ Qu[inv]  # Q^-1 is symmetric
-    out = np.zeros_like(X)
+    -F_k^T Q_k^-1 r_k and knot k+1 gets Q_k^-1 r_k. Entry by entry over the 4 x 4 blocks, each a
+    gathered column of the tables (measured in the 1M profile: gathering whole (K, 4, 4) blocks
+    for a stacked product took 120 ms a call against 87 ms)."""
+    def times(M, v, transpose=False):
+        out = np.zeros_like(v)
+        for a in range(N_PATH):
+            for b in range(N_PATH):
+                m = M[:, b, a] if transpose else M[:, a, b]
+                if np.any(m):
+                    out[:, a] += m[inv][:, None] * v[:, b]
+        return out
+
+    r = x[1:] - times(Fu, x[:-1])
+    qr = times(Qu, r)
+    out = np.zeros_like(x)
     out[1:] += qr
-    out[:-1] -= qr @ Fu[inv]
-    return np.swapaxes(out, 1, 2)
+    out[:-1] -= times(Fu, qr, transpose=True)
+    return out
 
 
 @dataclass
