@@ -515,9 +515,9 @@ def _turn_unit_blocks(key: int) -> tuple[FloatArray, FloatArray, float]:
     of that turn rate (and on a steady grade) costs the prior nothing, where the constant-jerk
     prior (omega = 0) charges circular motion for its snap v^4 kappa^3 and so flattens arcs.
     This is an L-spline prior (Kimeldorf & Wahba 1971; Wahba 1990, Spline Models for
-    Observational Data, sec. 1.2) with a turn rate that varies along the path. F = exp(A) and
-    Q = int_0^1 exp(A s) e4 e4^T exp(A s)^T ds by Van Loan's block exponential (Van Loan, IEEE
-    TAC 23(3), 1978)."""
+    Observational Data, sec. 1.2; both from memory) with a turn rate that varies along the
+    path. F = exp(A) and Q = int_0^1 exp(A s) e4 e4^T exp(A s)^T ds by Van Loan's block
+    exponential (Van Loan, IEEE TAC 23(3), 1978; from memory)."""
     if key not in _TURN_CACHE:
         from scipy.linalg import expm
 
@@ -662,7 +662,7 @@ def turn_refit_draws(system: "AxisSystem", U: FloatArray, refit: TurnRefit, whit
     the model's Gauss-Markov wander on the knot grid, white velocity error of ``vel_sd``), the
     first pass's response to it (hence the draw's turn rates omega'), and the turn-aware
     smoother's, to first order in both (a linearised parametric bootstrap; Efron & Tibshirani
-    1993, ch. 6 and 21): with Lambda the turn-aware posterior precision at the estimate's rates
+    1993, ch. 6 and 21, chapters from memory): with Lambda the turn-aware posterior precision at the estimate's rates
     and Delta the change of its prior precision at omega',
     x(omega', y + e) - x(omega, y) ~ Lambda^-1 H^T W e - Lambda^-1 Delta x_hat.
     One right-hand side per draw (the first pass has the same fixes and weights), batched
