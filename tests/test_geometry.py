@@ -9,6 +9,7 @@ from survey.frame import LocalFrame
 from survey.geometry import frenet
 from survey.profile_build import build_profile
 from survey.stations import TORSION_LOW_CURVATURE
+from tests.band_support import band_hits
 
 FRAME = LocalFrame.enu(46.5, 7.6, 800.0)  # invented site
 
@@ -145,10 +146,7 @@ def test_curvature_band_covers_the_truth_at_about_its_stated_rate():
     hits_k = []
     for seed in range(8):
         f = S.add_gnss_error(traj, "dual", np.random.default_rng(100 + seed), wander_m=0.0, white_m=0.15)
-        p = profile_of(f, seed=seed)
-        core = (p.chainage_m > 40) & (p.chainage_m < traj.length_m - 40)
-        sel = np.flatnonzero(core)[:: 25]  # thin out: neighbouring stations are correlated
-        hits_k.append(np.abs(p.curvature_per_m[sel] - k_true) <= p.curvature_sd_per_m[sel])
+        hits_k.append(band_hits(profile_of(f, seed=seed), "curvature_per_m", k_true, traj.length_m))
     cover_k = np.mean(np.concatenate(hits_k))
     assert 0.45 <= cover_k <= 0.92
 
@@ -161,9 +159,7 @@ def test_torsion_band_covers_the_truth_at_about_its_stated_rate():
     hits = []
     for seed in range(8):
         f = S.add_gnss_error(traj, "dual", np.random.default_rng(100 + seed), wander_m=0.0, white_m=0.15)
-        p = profile_of(f, seed=seed)
-        sel = np.flatnonzero((p.chainage_m > 40) & (p.chainage_m < traj.length_m - 40))[::25]
-        hits.append(np.abs(p.torsion_per_m[sel] - t_true) <= p.torsion_sd_per_m[sel])
+        hits.append(band_hits(profile_of(f, seed=seed), "torsion_per_m", t_true, traj.length_m))
     assert 0.45 <= np.mean(np.concatenate(hits)) <= 0.92
 
 

@@ -16,6 +16,7 @@ from survey import synthetic as S
 from survey.clean import clean_track
 from survey.frame import LocalFrame
 from survey.profile_build import build_profile
+from tests.band_support import band_hits
 
 FRAME = LocalFrame.enu(46.5, 7.6, 800.0)  # invented site
 SWITCHBACKS = S.switchbacks(radius_m=8.0)
@@ -107,10 +108,7 @@ def test_curvature_band_with_doppler_velocity_covers_the_truth_at_about_its_stat
         rng = np.random.default_rng(200 + seed)
         f = S.add_gnss_error(traj, "dual", rng, wander_m=0.0, white_m=0.3)
         f = S.add_doppler_velocity(f, traj, "dual", rng, sigma_mps=0.15)
-        p = _profile(f, seed=seed)
-        core = (p.chainage_m > 40) & (p.chainage_m < traj.length_m - 40)
-        sel = np.flatnonzero(core)[::25]  # thin out: neighbouring stations are correlated
-        hits.append(np.abs(p.curvature_per_m[sel] - k_true) <= p.curvature_sd_per_m[sel])
+        hits.append(band_hits(_profile(f, seed=seed), "curvature_per_m", k_true, traj.length_m))
     cover = np.mean(np.concatenate(hits))
     assert 0.45 <= cover <= 0.92, cover
 
