@@ -672,10 +672,7 @@ def turn_refit_draws(system: "AxisSystem", U: FloatArray, refit: TurnRefit, whit
     A = refit.states.shape[2]
     e = rng.standard_normal((n, A, n_samples)) * np.sqrt(np.where(np.isfinite(white_var), white_var, 0.0))[:, None, None]
     if model.wander_var_m2 > 0:  # the Gauss-Markov wander on the knot grid, linear between knots
-        phi = float(np.exp(-design.h / model.wander_tau_s))
-        z = rng.standard_normal((K, A * n_samples)) * np.sqrt(model.wander_var_m2 * (1.0 - phi**2))
-        z[0] *= 1.0 / np.sqrt(1.0 - phi**2)
-        b = _ar1(z, phi)
+        b = _wander_at_knots(model, design.h, K, A * n_samples, rng)
         sig = design.sigma[:, None]
         e += ((1.0 - sig) * b[design.interval] + sig * b[design.interval + 1]).reshape(n, A, n_samples)
     e = e.reshape(n, -1)
@@ -1016,6 +1013,16 @@ def _ar1(z: FloatArray, phi: float) -> FloatArray:
 _RHS_BLOCK = 4096
 
 
+def _wander_at_knots(model: NoiseModel, h: float, K: int, cols: int, rng: np.random.Generator) -> FloatArray:
+    """(K, cols) independent realisations of the model's stationary Gauss-Markov wander at knots
+    ``h`` seconds apart (exact AR(1) discretisation: phi = exp(-h / tau), innovation variance
+    var (1 - phi^2), the first knot drawn from the stationary variance), m."""
+    phi = float(np.exp(-h / model.wander_tau_s))
+    z = rng.standard_normal((K, cols)) * np.sqrt(model.wander_var_m2 * (1.0 - phi**2))
+    z[0] = rng.standard_normal(cols) * np.sqrt(model.wander_var_m2)
+    return _ar1(z, phi)
+
+
 def noise_draws(
     system: AxisSystem, U: FloatArray, white_var: FloatArray, model: NoiseModel, n_samples: int,
     rng: np.random.Generator, n_axes: int | None = None,
@@ -1053,10 +1060,7 @@ def noise_draws(
     sums = _interval_sums(system.design, white, 8, cols)  # (K-1, cols, 8)
     b = None
     if model.wander_var_m2 > 0:
-        phi = float(np.exp(-system.design.h / model.wander_tau_s))
-        z = rng.standard_normal((K, cols)) * np.sqrt(model.wander_var_m2 * (1.0 - phi**2))
-        z[0] = rng.standard_normal(cols) * np.sqrt(model.wander_var_m2)
-        b = _ar1(z, phi)[:, None, :]  # (K, 1, cols)
+        b = _wander_at_knots(model, system.design.h, K, cols, rng)[:, None, :]  # (K, 1, cols)
         if system.wander_gain is None:  # same for every batch of draws: computed once
             m = _interval_sums(system.design, system.w, N_LEG)
             system.wander_gain = (m @ W0, m @ W1)
