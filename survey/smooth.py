@@ -668,33 +668,27 @@ def turn_refit_draws(system: "AxisSystem", U: FloatArray, refit: TurnRefit, whit
     One right-hand side per draw (the first pass has the same fixes and weights), batched
     solves with the two factors and one more with Lambda's: no factorisation per draw."""
     design = system.design
-    n, K = len(design.interval), design.n_knots
+    K, d = design.n_knots, system.dim
     A = refit.states.shape[2]
-    e = rng.standard_normal((n, A, n_samples)) * np.sqrt(np.where(np.isfinite(white_var), white_var, 0.0))[:, None, None]
-    if model.wander_var_m2 > 0:  # the Gauss-Markov wander on the knot grid, linear between knots
-        b = _wander_at_knots(model, design.h, K, A * n_samples, rng)
-        sig = design.sigma[:, None]
-        e += ((1.0 - sig) * b[design.interval] + sig * b[design.interval + 1]).reshape(n, A, n_samples)
-    e = e.reshape(n, -1)
-    ev = None
-    if refit.vel_sd is not None:
-        ev = (rng.standard_normal((n, A, n_samples)) * np.where(np.isfinite(refit.vel_sd), refit.vel_sd, 0.0)[:, None, None]).reshape(n, -1)
-    rhs = _columns_rhs(system, e, ev).reshape(K, system.dim, A, n_samples)  # the first pass's too
-    del e, ev
-    d = system.dim
+    vel_scale = None
+    if refit.vel_sd is not None:  # H^T W of a velocity error of that 1-sigma, per knot interval
+        vel_scale = system.wv * design.h * refit.vel_sd
+    rhs = _noise_rhs(system, white_var, model, n_samples * A, rng, vel_scale).reshape(K, d, n_samples, A)
     q = system.model.snap_psd * design.h**7
     xp = refit.states[:, :N_PATH, :]
     if refit.prior_states is None:  # the same for every batch of draws
         refit.prior_states = _path_prior_times(*system.turn_blocks, xp)
     # all draws' first passes in one solve (a banded solve costs little more per extra column)
-    first = cho_solve_banded((refit.first_factor.astype(float), False), rhs.reshape(K * d, -1),
-                             check_finite=False).reshape(K, d, A, n_samples)
+    if refit.first_factor.dtype != np.float64:  # kept in single precision; in double from the first draw on
+        refit.first_factor = refit.first_factor.astype(np.float64)
+    first = cho_solve_banded((refit.first_factor, False), rhs.reshape(K * d, -1),
+                             check_finite=False).reshape(K, d, n_samples, A)
     for j in range(n_samples):  # each draw's turn rates change the prior: into its right-hand side
-        Fj, Qj, _, ij = _turn_tables(plan_turn_rate(first[..., j] + refit.first_states, refit.slow), q)
-        rhs[:, :N_PATH, :, j] -= _path_prior_times(Fj, Qj, ij, xp) - refit.prior_states
+        Fj, Qj, _, ij = _turn_tables(plan_turn_rate(first[:, :, j] + refit.first_states, refit.slow), q)
+        rhs[:, :N_PATH, j] -= _path_prior_times(Fj, Qj, ij, xp) - refit.prior_states
     del first
     out = cho_solve_banded((U, False), rhs.reshape(K * d, -1), check_finite=False)
-    return np.moveaxis(out.reshape(K, d, A, n_samples), 3, 0)
+    return np.moveaxis(out.reshape(K, d, n_samples, A), 2, 0)
 
 
 @dataclass
@@ -1023,36 +1017,27 @@ def _wander_at_knots(model: NoiseModel, h: float, K: int, cols: int, rng: np.ran
     return _ar1(z, phi)
 
 
-def noise_draws(
-    system: AxisSystem, U: FloatArray, white_var: FloatArray, model: NoiseModel, n_samples: int,
-    rng: np.random.Generator, n_axes: int | None = None,
-) -> FloatArray:
-    """Sampling error of the estimated knot states under repeated receiver noise,
-    (n_samples, K, dim, A).
-
-    The estimate is linear in the fixes, x_hat = Lambda^-1 H^T W y, so its error for a fixed true
-    path is Lambda^-1 H^T W (e + b): ``e`` white noise of variance ``white_var`` per fix and ``b``
-    the model's Gauss-Markov wander (simulated exactly on the knot grid, interpolated like the
-    wander state). Each draw is one fresh realisation of the receiver error passed through the
-    very same smoother, which is what "covers the truth at its stated rate on repeated noisy
-    logs" asks for (the Bayesian posterior spread also contains the prior's spread of paths, which
-    a fixed smooth path does not have, and over-covers for higher derivatives). ``n_axes`` draws
-    only the system's first columns (the rest are carried data, see ``AxisGroup.carried``).
+def _noise_rhs(system: AxisSystem, white_var: FloatArray, model: NoiseModel, cols: int,
+               rng: np.random.Generator, vel_scale: FloatArray | None = None) -> FloatArray:
+    """Right-hand sides H^T W e (K, d, cols) of ``cols`` fresh receiver-error realisations e at
+    the system's fixes: white of variance ``white_var`` (n,) m^2, the model's Gauss-Markov
+    wander simulated on the knot grid (linear between knots, like the wander state), and, for a
+    system with velocity measurements, white velocity error whose right-hand side per fix is
+    ``vel_scale`` (n,) times a standard normal (``noise_draws``, ``turn_refit_draws``).
 
     H^T W e is gathered per knot interval with the Legendre sums of ``build_system``; the wander
     enters through two per-interval vectors (sum_i w_i r_i (1 - sigma_i) and sum_i w_i r_i sigma_i)
-    times the knot values of b, so no per-fix work depends on the wander. The right-hand sides
-    are assembled block by block of intervals, directly in the solver's (K, d, draws) order.
-    """
+    times the knot values of b, so no per-fix work depends on the wander. The white errors are
+    drawn block by block in order of the fixes (the same numbers as at once, without an (n, cols)
+    array) and the right-hand sides assembled block by block of intervals, directly in the
+    solver's (K, d, cols) order."""
     d = system.dim
-    A = system.rhs.shape[1] if n_axes is None else n_axes  # the first n_axes columns only
     K = system.design.n_knots
     B, _, W0, W1 = _tables(d)
-    cols = n_samples * A
     scale = np.sqrt(np.where(system.w > 0, white_var, 0.0))
     scale *= system.w
 
-    def white(a, b):  # drawn block by block in order of the fixes: the same numbers as at once
+    def white(a, b):
         e = rng.standard_normal((b - a, cols))
         e *= scale[a:b, None]
         return e
@@ -1066,8 +1051,10 @@ def noise_draws(
             system.wander_gain = (m @ W0, m @ W1)
         g0, g1 = (g[:, :, None] for g in system.wander_gain)  # (K-1, 2d, 1)
     sums_v = None
-    if system.wv is not None:  # the receiver's velocity noise: variance 1 / weight, white
-        scale_v = np.sqrt(system.wv)
+    if system.wv is not None:
+        if vel_scale is None:
+            raise ValueError("this smoother takes velocity measurements: give their error scale")
+        scale_v = np.where(np.isfinite(vel_scale), vel_scale, 0.0)
 
         def white_v(a, b):
             ev = rng.standard_normal((b - a, cols))
@@ -1086,6 +1073,32 @@ def noise_draws(
             v = v + g0[a:c] * b[a:c] + g1[a:c] * b[a + 1 : c + 1]
         rhs[a:c] += v[:, :d]
         rhs[a + 1 : c + 1] += v[:, d:]
+    return rhs
+
+
+def noise_draws(
+    system: AxisSystem, U: FloatArray, white_var: FloatArray, model: NoiseModel, n_samples: int,
+    rng: np.random.Generator, n_axes: int | None = None,
+) -> FloatArray:
+    """Sampling error of the estimated knot states under repeated receiver noise,
+    (n_samples, K, dim, A).
+
+    The estimate is linear in the fixes, x_hat = Lambda^-1 H^T W y, so its error for a fixed true
+    path is Lambda^-1 H^T W (e + b): ``e`` white noise of variance ``white_var`` per fix and ``b``
+    the model's Gauss-Markov wander (simulated exactly on the knot grid, interpolated like the
+    wander state). Each draw is one fresh realisation of the receiver error passed through the
+    very same smoother, which is what "covers the truth at its stated rate on repeated noisy
+    logs" asks for (the Bayesian posterior spread also contains the prior's spread of paths, which
+    a fixed smooth path does not have, and over-covers for higher derivatives). ``n_axes`` draws
+    only the system's first columns (the rest are carried data, see ``AxisGroup.carried``).
+    The right-hand sides H^T W (e + b) come from ``_noise_rhs``.
+    """
+    d = system.dim
+    A = system.rhs.shape[1] if n_axes is None else n_axes  # the first n_axes columns only
+    K = system.design.n_knots
+    cols = n_samples * A
+    vel_scale = np.sqrt(system.wv) if system.wv is not None else None  # variance 1 / weight
+    rhs = _noise_rhs(system, white_var, model, cols, rng, vel_scale)
     x = cho_solve_banded((U, False), rhs.reshape(K * d, cols), check_finite=False)  # (K d, cols)
     return np.moveaxis(x.reshape(K, d, n_samples, A), 2, 0)
 
