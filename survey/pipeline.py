@@ -6,6 +6,7 @@ and checks the few conditions under which there is nothing to measure.
 
 from __future__ import annotations
 
+from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import NamedTuple
 
@@ -94,6 +95,16 @@ def run_profile(
     return ProfileRun(loaded.track, loaded.report, loaded.frame, profile)
 
 
+@contextmanager
+def _singular_as_input_error(path: str | None):
+    """A smoothing system that is numerically singular on this log becomes a one-line error
+    naming the log (exit status 1), not a traceback."""
+    try:
+        yield
+    except np.linalg.LinAlgError as exc:
+        raise InputError(path, f"the smoothed path could not be solved on this log (numerically singular system: {exc})") from None
+
+
 def compute_profile(
     loaded: LoadedLog,
     step_m: float = 1.0,
@@ -119,7 +130,7 @@ def compute_profile(
 
     from .profile_build import build_profile
 
-    with threadpool_limits(limits=1, user_api="blas"):
+    with threadpool_limits(limits=1, user_api="blas"), _singular_as_input_error(loaded.track.source.path):
         if imu is None:
             return build_profile(loaded.track, loaded.enu_m, loaded.frame, step_m=step_m, **settings)
         from .fusion_stage import add_imu_fields, fuse_loaded

@@ -1642,12 +1642,21 @@ def smooth_stretch(
         scale = gv.model.smoothing_scale_s(float(np.median(wv)), interval)
         if has_vel:  # up, east, north alike through the horizontal smoother on positions only
             axes, m, var, design = prepared[0]
-            sysm, U, x, _ = _smooth_group(Yc[:, [2, 0, 1]], var, w_h, m, design)
-            conv = design.h ** -np.arange(N_PATH)
-            alike = np.swapaxes(x[:, :N_PATH, :], 1, 2) * conv
+            alike = None
+            for stiffer in (1.0, 16.0, 256.0):
+                # without the velocity rows the system is less well conditioned than the plan
+                # estimate's: where it is numerically singular, a larger snap density (a
+                # shorter scale, the grade still averaged over grade_window_scales x scale)
+                try:
+                    sysm, U, x, _ = _smooth_group(Yc[:, [2, 0, 1]], var, w_h, replace(m, snap_psd=m.snap_psd * stiffer), design)
+                except np.linalg.LinAlgError:
+                    continue
+                alike = np.swapaxes(x[:, :N_PATH, :], 1, 2) * (design.h ** -np.arange(N_PATH))
+                break
         else:
             alike = gh.states[:, [2, 0, 1]]
-        gh.grade = local_grade(alike, grade_window_scales * scale / gh.h)
+        # no grade plane where even that fails: heights then come from the vertical smoother alone
+        gh.grade = None if alike is None else local_grade(alike, grade_window_scales * scale / gh.h)
     if twice:
         for g, (sysm, U, x, _) in zip(groups, results):
             conv = g.h ** -np.arange(N_PATH)

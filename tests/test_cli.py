@@ -154,3 +154,23 @@ def test_profile_measures_speed_and_course_unless_positions_only(tmp_path):
     assert main(["profile", str(van), "--positions-only", "-o", str(only)]) == 0
     assert "receiver_velocity=" in both.read_text()
     assert "receiver_velocity=" not in only.read_text()
+
+
+def test_a_numerically_singular_smoother_gives_one_line_naming_the_log_and_no_output(capsys, tmp_path, good_csv,
+                                                                                      monkeypatch):
+    # Should the banded system ever be singular on some log, the user gets the usual one-line
+    # error naming the log and exit status 1, and no half-written output.
+    import numpy as np
+
+    import survey.profile_build as pb
+
+    def singular(*a, **k):
+        raise np.linalg.LinAlgError("7-th leading minor not positive definite")
+
+    monkeypatch.setattr(pb, "build_profile", singular)
+    out_csv = tmp_path / "out.csv"
+    code, out, err = run_cli(capsys, "profile", good_csv, "-o", out_csv)
+    lines = err.strip().splitlines()
+    assert code == 1 and len(lines) == 1 and lines[0].startswith("trackframe: error: ")
+    assert str(good_csv) in lines[0] and "singular" in lines[0]
+    assert not out_csv.exists()

@@ -159,3 +159,26 @@ def test_doppler_velocity_cuts_the_false_sharp_sections_on_8_m_switchbacks():
                 p = build_profile(track, np.column_stack([e, n, u]), FRAME)
                 count[doppler] += sum(1 for sec in detect_sections(p, limits) if sec.kind == "sharp")
     assert count[False] >= 3 and count[True] <= count[False] / 3, count
+
+
+def test_a_singular_positions_only_grade_smoother_falls_back_to_a_stiffer_one(monkeypatch):
+    # With velocities the local grade comes from a positions-only pass of the plan smoother (no
+    # velocity rows, so less well conditioned). Made to fail once, as a numerically singular
+    # band would, the profile must still come out, with finite heights and torsion where the
+    # curvature allows it (helix: closed form tau = c/(a^2+c^2) > 0, do Carmo 1976).
+    import survey.smooth as sm
+
+    real, failed = sm._smooth_group, []
+
+    def once_singular(Y, var, w, m, design, *rest):
+        if Y.shape[1] == 3 and not rest and not failed:
+            failed.append(m.snap_psd)
+            raise np.linalg.LinAlgError("4-th leading minor not positive definite")
+        return real(Y, var, w, m, design, *rest)
+
+    monkeypatch.setattr(sm, "_smooth_group", once_singular)
+    traj = S.helix(50, 5, 10, 10, 3)
+    p = _profile(_phone(traj, 100))
+    assert failed, "the positions-only pass was not reached"
+    assert np.all(np.isfinite(p.up_m))
+    assert np.nanmedian(p.torsion_per_m) > 0
