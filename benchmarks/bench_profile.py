@@ -4,6 +4,9 @@ command is measured by benchmarks/bench_scale.py).
 
 Run:  /tmp/v/bin/python benchmarks/bench_profile.py [N ...]   (default: 100000 1000000)
       /tmp/v/bin/python benchmarks/bench_profile.py --split N  (where the time goes, one size)
+      /tmp/v/bin/python benchmarks/bench_profile.py --split-log LOG  (the same on a log file, read
+          and run through survey.pipeline.run_profile as ``trackframe profile`` does; reading
+          is included in the total)
 
 Each size runs in its own process (clean peak-memory reading); prints one table. build_s is wall
 time, cpu_s the process CPU time (steadier than wall time when other jobs share the machine);
@@ -78,7 +81,7 @@ def one(n: int) -> None:
     print(f"{n:>9d} {len(p):>9d} {secs:8.1f} {cpu:8.1f} {csv_s:6.1f} {peak:9.0f}")
 
 
-def split(n: int) -> None:
+def split(n: int, log: str | None = None) -> None:
     import importlib
     import os
     import tempfile
@@ -107,13 +110,20 @@ def split(n: int) -> None:
     from survey.profile_build import build_profile
     from survey.profile_export import write_csv
 
-    track, enu, frame = make_log(n)
+    if log is None:
+        track, enu, frame = make_log(n)
     with threadpool_limits(limits=1, user_api="blas"), tempfile.TemporaryDirectory() as tmp:
         t0 = time.perf_counter()
-        p = build_profile(track, enu, frame)
+        if log is None:
+            p = build_profile(track, enu, frame)
+        else:
+            from survey import pipeline
+
+            p = pipeline.run_profile(log).profile
         write_csv(p, os.path.join(tmp, "p.csv"))
         total = time.perf_counter() - t0
-    print(f"{n} fixes -> {len(p)} stations, build_profile + write_csv {total:.2f} s wall (one BLAS thread)")
+    what = f"{log}: " if log else f"{n} fixes -> "
+    print(f"{what}{len(p)} stations, build_profile + write_csv {total:.2f} s wall (one BLAS thread)")
     print(f"{'stage':24s} {'calls':>6s} {'wall_s':>7s}")
     for _, name in SPLIT:
         if name in totals:
@@ -123,6 +133,9 @@ def split(n: int) -> None:
 if __name__ == "__main__":
     if len(sys.argv) > 2 and sys.argv[1] == "--one":
         one(int(sys.argv[2]))
+        raise SystemExit(0)
+    if len(sys.argv) > 2 and sys.argv[1] == "--split-log":
+        split(0, sys.argv[2])
         raise SystemExit(0)
     if len(sys.argv) > 1 and sys.argv[1] == "--split":
         split(int(sys.argv[2]) if len(sys.argv) > 2 else 1_000_000)
