@@ -127,8 +127,6 @@ FloatArray = NDArray[np.float64]
 
 N_PATH = 4  # p, v, a, j
 KNOTS_PER_SCALE = 2.0  # knot intervals per smoothing scale (see knot_spacing)
-WANDER_KNOTS_PER_TAU = 40.0  # knot intervals per wander correlation time, at least (knot_spacing)
-FINEST_KNOTS_PER_SCALE = 6.0  # knot intervals per smoothing scale, at most (knot_spacing)
 _K = np.array([[1.0 / (factorial(3 - i) * factorial(3 - j) * (7 - i - j)) for j in range(4)] for i in range(4)])
 _KINV = np.linalg.inv(_K)
 _LOGDET_K = float(np.linalg.slogdet(_K)[1])
@@ -368,31 +366,14 @@ class NoiseModel:
 
 
 def knot_spacing(model: NoiseModel, white_var_m2: float, interval_s: float, span_s: float) -> float:
-    """Knot interval h: the smoother's scale s / ``KNOTS_PER_SCALE`` (fine enough that the
-    Hermite pieces represent the posterior path -- its frequency response falls off like
-    1/(1 + (w s)^8) beyond 1/s, so a degree-7 piece over half a scale is ample; measured with
+    """Knot interval h: the smoother's scale / ``KNOTS_PER_SCALE`` (fine enough that the Hermite
+    pieces represent the posterior path -- its frequency response falls off like 1/(1 + (w s)^8)
+    beyond 1/s, so a degree-7 piece over half a scale is ample; measured with
     benchmarks/bench_accuracy.py --quick: kappa and radius errors at h = s/4, s/2 and s agree
     within 0.1 percentage point -- and coarse enough that the banded system stays well
     conditioned and small), never finer than half the median fix interval nor coarser than
-    span/4.
-
-    Where the wander is modelled, h is also at most its correlation time tau /
-    ``WANDER_KNOTS_PER_TAU``, though not finer than s / ``FINEST_KNOTS_PER_SCALE`` (the
-    conditioning of the band). The wander is linear between knots; a Gauss-Markov wander of
-    variance g^2 has increments of variance 2 g^2 (1 - exp(-d/tau)) ~ 2 g^2 d / tau over d << tau
-    (from its covariance g^2 exp(-|d|/tau)), so between two knots it leaves the chord by a
-    Brownian bridge of variance up to g^2 h / (2 tau) at mid-interval, which the model does not
-    hold. At h = s/2 on phone heights (s 5-8 s, tau 60 s) that is 2-7 % of g^2, and it made the
-    likelihood over the snap density jagged (steps of 10-30 between neighbouring q, the knot
-    grid moving with q), so the fitted vertical q, and the grade and torsion with it, varied
-    from log to log. At tau / 40 it is 1.25 % of g^2 (benchmarks/bench_accuracy.py, 10 seeds:
-    phone helix torsion 11.1 % -> 8.9 %, with Doppler 9.3 % -> 7.8 %). Where s /
-    ``FINEST_KNOTS_PER_SCALE`` binds (the smoothest q on phone heights) the grid still moves
-    with q and the likelihood there is still jagged."""
-    s = model.smoothing_scale_s(white_var_m2, interval_s)
-    h = s / KNOTS_PER_SCALE
-    if model.wander_var_m2 > 0:
-        h = max(min(h, model.wander_tau_s / WANDER_KNOTS_PER_TAU), s / FINEST_KNOTS_PER_SCALE)
+    span/4."""
+    h = model.smoothing_scale_s(white_var_m2, interval_s) / KNOTS_PER_SCALE
     return float(np.clip(h, 0.5 * interval_s, max(span_s / 4.0, 0.5 * interval_s)))
 
 
