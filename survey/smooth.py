@@ -127,6 +127,9 @@ FloatArray = NDArray[np.float64]
 
 N_PATH = 4  # p, v, a, j
 KNOTS_PER_SCALE = 2.0  # knot intervals per smoothing scale (see knot_spacing)
+COARSEST_KNOTS_PER_SCALE = 1.0  # ... on dense logs where the wander allows (knot_spacing)
+COARSE_FIXES_PER_SCALE = 8.0  # a dense log: at least this many fixes per smoothing scale
+WANDER_KNOTS_PER_TAU = 40.0  # knot intervals per wander correlation time, at least (knot_spacing)
 _K = np.array([[1.0 / (factorial(3 - i) * factorial(3 - j) * (7 - i - j)) for j in range(4)] for i in range(4)])
 _KINV = np.linalg.inv(_K)
 _LOGDET_K = float(np.linalg.slogdet(_K)[1])
@@ -372,8 +375,30 @@ def knot_spacing(model: NoiseModel, white_var_m2: float, interval_s: float, span
     benchmarks/bench_accuracy.py --quick: kappa and radius errors at h = s/4, s/2 and s agree
     within 0.1 percentage point -- and coarse enough that the banded system stays well
     conditioned and small), never finer than half the median fix interval nor coarser than
-    span/4."""
-    h = model.smoothing_scale_s(white_var_m2, interval_s) / KNOTS_PER_SCALE
+    span/4.
+
+    On a dense log (at least ``COARSE_FIXES_PER_SCALE`` fixes per scale s) the knots may be up
+    to s / ``COARSEST_KNOTS_PER_SCALE`` apart, as far as the wander allows: it is linear
+    between knots, and a Gauss-Markov wander of variance g^2 and correlation time tau has
+    increments of variance 2 g^2 (1 - exp(-d/tau)) ~ 2 g^2 d / tau over d << tau (from its
+    covariance g^2 exp(-|d|/tau)), so between knots h apart it leaves the chord by a Brownian
+    bridge of variance up to g^2 h / (2 tau) at mid-interval, which the model does not hold;
+    h <= tau / ``WANDER_KNOTS_PER_TAU`` keeps that at 1.25 % of g^2 or less. Measured with
+    benchmarks/bench_accuracy.py (10 seeds) against h = s/2 everywhere, the two cases that take
+    the coarser knots: 10 Hz dual-frequency road radius 1.52 % -> 1.49 % (corrupted 1.74 % ->
+    1.80 %); phone helix (its plan) kappa 3.06 % -> 2.98 %, torsion 11.1 % -> 11.2 %
+    (corrupted 8.0 % -> 8.8 %); every other case unchanged. h = s on every log instead cost the
+    1 Hz phone road 0.45 point of radius (7.55 % -> 8.00 %) and the phone helix 2 points of
+    torsion (11.1 % -> 13.2 %, its heights' scale s of 5-8 s against tau / 40 = 1.5 s). Finer
+    knots than s/2 are no remedy: the banded system's conditioning grows like (s/h)^7 (at s/6
+    on phone heights its condition number reached 6e14 and the sampling-error draws blew up).
+    On the 1M-fix scale drive (10 Hz, dual-frequency; benchmarks/bench_scale.py) the knots are
+    twice as far apart and the whole profile is about a quarter faster."""
+    s = model.smoothing_scale_s(white_var_m2, interval_s)
+    h = s / KNOTS_PER_SCALE
+    if s >= COARSE_FIXES_PER_SCALE * interval_s:
+        wander_limit = model.wander_tau_s / WANDER_KNOTS_PER_TAU if model.wander_var_m2 > 0 else np.inf
+        h = max(h, min(s / COARSEST_KNOTS_PER_SCALE, wander_limit))
     return float(np.clip(h, 0.5 * interval_s, max(span_s / 4.0, 0.5 * interval_s)))
 
 
