@@ -41,7 +41,9 @@ Steps (one-way):
    smoothed speed is below ``stop_sigmas`` times its own 1-sigma the mover is taken as stopped and
    the chainage does not advance, so no station falls inside a stop (kappa is per metre of path).
    Stations on the run into or out of a stop whose speed is below ``slow_sigmas`` x its 1-sigma
-   (heading uncertain by more than ~1/20 rad) take the geometry of the nearest measured station.
+   (heading uncertain by more than ~1/20 rad) take the geometry of the nearest measured station;
+   where that would be every station (a phone at walking pace), those below ``stop_sigmas`` x
+   its 1-sigma do.
    Curvature, torsion (and their 1-sigma), plan and vertical curvature are per metre of
    that corrected chainage (``per_corrected_metre``): the smoothed path turns its tangent at
    about the true rate (a turn's heading change is kept, over the same time) while its speed
@@ -506,7 +508,14 @@ def _stations(sm, ts, chain, sid, has_time, has_height, unc, t_stop, cfg) -> dic
         for k, v in part.items():
             out[k][a : a + step] = v
     if has_time:
-        slow = _near_stops(ts, out["speed_mps"] < cfg["slow_sigmas"] * np.interp(ts, unc["t"], unc["speed_sd"]), t_stop)
+        sd = np.interp(ts, unc["t"], unc["speed_sd"])
+        for sigmas in (cfg["slow_sigmas"], cfg["stop_sigmas"]):
+            # a slow, noisy log (a phone at walking pace) can be below slow_sigmas x its
+            # 1-sigma everywhere: then at least the stations not significantly moving
+            # (stop_sigmas, as the chainage's stops) take the nearest measured geometry
+            slow = _near_stops(ts, out["speed_mps"] < sigmas * sd, t_stop)
+            if not slow.all():
+                break
         if slow.any() and not slow.all():
             _hold_geometry(out, slow)
     return out

@@ -37,6 +37,23 @@ def test_stop_in_the_middle_does_not_blow_up_curvature():
     assert abs(p.chainage_m[-1] - traj.length_m) < 0.02 * traj.length_m
 
 
+def test_on_a_slow_noisy_walk_stations_at_a_stop_take_measured_geometry():
+    # A phone at walking pace (1.2 m/s, 1 Hz) round a 30 m circle (closed form kappa = 1/30 per
+    # metre) with eight one-minute stops. Its speed is below slow_sigmas x its 1-sigma almost
+    # everywhere, so the stations at the stops' edges, barely moving, must still take the
+    # geometry of a measured station: before, one at 0.05 m/s read kappa 4.0 per metre (a 25 cm
+    # radius). Seed 3 puts two stations below 0.1 m/s.
+    stops = [(40.0 + 50.0 * i, 60.0) for i in range(8)]
+    traj = S.sample_path(S.helix_curve(30.0, 0.0, 2.0), speed_mps=1.2, rate_hz=1.0, stops=stops)
+    p = _build(S.fixes_to_track(S.add_gnss_error(traj, "phone", np.random.default_rng(3)), FRAME.inverse))
+    crawling = np.flatnonzero(p.speed_mps < 0.1)
+    assert len(crawling) > 0
+    for i in crawling:
+        others = np.delete(p.curvature_per_m, i)
+        assert np.any(others == p.curvature_per_m[i]), f"station {i} kept its own curvature"
+    assert np.nanmax(p.curvature_per_m) < 0.5  # no radius below 2 m on a 30 m circle
+
+
 def test_route_without_time_still_gives_geometry_but_no_speed():
     traj = S.helix(40.0, 3.0, speed_mps=5.0, rate_hz=1.0, turns=1.0)
     f = S.add_gnss_error(traj, "rtk", np.random.default_rng(2))
