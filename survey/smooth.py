@@ -371,11 +371,11 @@ class NoiseModel:
 def knot_spacing(model: NoiseModel, white_var_m2: float, interval_s: float, span_s: float) -> float:
     """Knot interval h: the smoother's scale / ``KNOTS_PER_SCALE`` (fine enough that the Hermite
     pieces represent the posterior path -- its frequency response falls off like 1/(1 + (w s)^8)
-    beyond 1/s, so a degree-7 piece over half a scale is ample; measured with
-    benchmarks/bench_accuracy.py --quick: kappa and radius errors at h = s/4, s/2 and s agree
-    within 0.1 percentage point -- and coarse enough that the banded system stays well
-    conditioned and small), never finer than half the median fix interval nor coarser than
-    span/4.
+    beyond 1/s, so a degree-7 piece over half a scale is ample; an early measurement with
+    benchmarks/bench_accuracy.py --quick found kappa and radius errors at h = s/4, s/2 and s
+    within 0.1 percentage point, but see below for h = s on sparse logs -- and coarse enough
+    that the banded system stays well conditioned and small), never finer than half the median
+    fix interval nor coarser than span/4.
 
     On a dense log (at least ``COARSE_FIXES_PER_SCALE`` fixes per scale s) the knots may be up
     to s / ``COARSEST_KNOTS_PER_SCALE`` apart, as far as the wander allows: it is linear
@@ -393,7 +393,8 @@ def knot_spacing(model: NoiseModel, white_var_m2: float, interval_s: float, span
     knots than s/2 are no remedy: the banded system's conditioning grows like (s/h)^7 (at s/6
     on phone heights its condition number reached 6e14 and the sampling-error draws blew up).
     On the 1M-fix scale drive (10 Hz, dual-frequency; benchmarks/bench_scale.py) the knots are
-    twice as far apart and the whole profile is about a quarter faster."""
+    twice as far apart and the whole profile takes 0.69x the time (interleaved runs of
+    benchmarks/bench_profile.py --split-log)."""
     s = model.smoothing_scale_s(white_var_m2, interval_s)
     h = s / KNOTS_PER_SCALE
     if s >= COARSE_FIXES_PER_SCALE * interval_s:
@@ -703,7 +704,8 @@ def turn_refit_draws(system: "AxisSystem", U: FloatArray, refit: TurnRefit, whit
     xp = refit.states[:, :N_PATH, :]
     if refit.prior_states is None:  # the same for every batch of draws
         refit.prior_states = _path_prior_times(*system.turn_blocks, xp)
-    # all draws' first passes in one solve (a banded solve costs little more per extra column)
+    # all draws' first passes in one call (LAPACK still solves them column by column: a draw
+    # costs about as much as the first)
     if refit.first_factor.dtype != np.float64:  # kept in single precision; in double from the first draw on
         refit.first_factor = refit.first_factor.astype(np.float64)
     first = cho_solve_banded((refit.first_factor, False), rhs.reshape(K * d, -1),
