@@ -1,7 +1,8 @@
 """Command-line front of the headless commands: argument parsing and the one place errors become
 exit codes.
 
-Exit status: 0 success, 1 bad input (one line on stderr naming the file and record), 2 usage.
+Exit status: 0 success, 1 bad input (one line on stderr naming the file and record), 2 usage
+(argparse's own errors, and ``UsageError`` for options that cannot go together).
 The ``trackframe`` console script is ``tui.cli.main``, which adds the commands that open the
 viewer (``demo``, ``view``); this module never imports ``tui``.
 """
@@ -15,7 +16,7 @@ from types import ModuleType
 from typing import Sequence
 
 from . import __version__
-from .errors import InputError
+from .errors import InputError, UsageError
 
 #: Sub-command modules under ``survey.commands``, in the order ``--help`` lists them.
 COMMANDS = ("info", "profile", "flag", "batch")
@@ -49,6 +50,9 @@ def main(argv: list[str] | None = None, extra: Sequence[ModuleType] = ()) -> int
     args = parser.parse_args(argv)
     try:
         return int(args.run(args) or 0)
+    except UsageError as exc:
+        _error(str(exc))
+        return 2
     except InputError as exc:
         _error(str(exc))
         return 1

@@ -8,7 +8,7 @@ from os import PathLike
 class InputError(Exception):
     """A log, option or output path the tool cannot use.
 
-    The CLI prints ``str(error)`` on one line and exits with status 1.
+    The CLI prints ``str(error)`` on one line and exits with status 1 (``UsageError``: 2).
 
     Parameters
     ----------
@@ -29,3 +29,9 @@ class InputError(Exception):
     def __str__(self) -> str:
         parts = [p for p in (self.path, self.where, self.message) if p]
         return ": ".join(parts)
+
+
+class UsageError(InputError):
+    """Options that cannot be used together or a value an option cannot take, found after
+    parsing (argparse reports the rest itself): one line, exit status 2, as for any usage
+    mistake."""

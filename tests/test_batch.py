@@ -319,7 +319,7 @@ def test_flag_limit_options_and_presets_are_accepted(fleet, tmp_path, fake_pipel
 
 
 def test_nothing_to_check_is_the_flag_error(fleet, tmp_path, fake_pipeline, capsys):
-    assert main(["batch", "-j", "1", str(fleet["tight"]), "-o", str(tmp_path / "x.csv")]) == 1
+    assert main(["batch", "-j", "1", str(fleet["tight"]), "-o", str(tmp_path / "x.csv")]) == 2
     assert "nothing to check" in capsys.readouterr().err
 
 

@@ -91,6 +91,15 @@ def test_usage_errors_exit_2(capsys):
     assert exc.value.code == 2
 
 
+def test_an_option_value_out_of_range_is_a_usage_error_without_output(capsys, tmp_path, good_csv):
+    # checked after parsing, but a usage mistake all the same: one line, exit status 2 (as
+    # argparse's own; common practice for Unix tools), nothing written
+    out_csv = tmp_path / "out.csv"
+    code, out, err = run_cli(capsys, "profile", good_csv, "--samples", "1", "-o", out_csv)
+    assert code == 2 and err.count("\n") == 1 and "--samples" in err
+    assert not out_csv.exists()
+
+
 def test_every_command_has_help(capsys):
     from survey.cli import COMMANDS, build_parser
     from tui.commands import demo, view

@@ -135,8 +135,9 @@ def test_existing_output_is_refused_before_any_work(log, tmp_path, fake_pipeline
         (["--sharp-radius", "50", "--friction", "0.1"], "need --design-speed"),
     ],
 )
-def test_option_mistakes_are_one_line_errors(log, tmp_path, fake_pipeline, capsys, extra, message):
-    assert main(["flag", str(log), *extra, "-o", str(tmp_path / "x.csv")]) == 1
+def test_option_mistakes_are_one_line_usage_errors(log, tmp_path, fake_pipeline, capsys, extra, message):
+    # a usage mistake exits with status 2, as argparse's own do (common practice for Unix tools)
+    assert main(["flag", str(log), *extra, "-o", str(tmp_path / "x.csv")]) == 2
     err = capsys.readouterr().err
     assert message in err and err.count("\n") == 1
     assert not (tmp_path / "x.csv").exists()

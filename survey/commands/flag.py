@@ -14,7 +14,7 @@ from pathlib import Path
 
 from ..atomic import check_output_path
 from ..design import CAUTION, PRESETS, Limits, preset_limits
-from ..errors import InputError
+from ..errors import InputError, UsageError
 from ..sections import KIND_DESIGN, KINDS
 from .common import add_imu_arguments, add_log_arguments, imu_kwargs, log_kwargs, positive_float
 
@@ -124,11 +124,11 @@ def limits_from_args(args: argparse.Namespace) -> Limits:
             confidence_sigma=args.confidence,
         )
     except ValueError as exc:
-        raise InputError(None, str(exc)) from None
+        raise UsageError(None, str(exc)) from None
     if (args.superelevation is not None or args.friction is not None) and not limits.design_on:
-        raise InputError(None, "--superelevation and --friction need --design-speed (or a road preset)")
+        raise UsageError(None, "--superelevation and --friction need --design-speed (or a road preset)")
     if not limits.any_check:
-        raise InputError(None, "nothing to check: give --sharp-radius, --twist, --design-speed or --preset")
+        raise UsageError(None, "nothing to check: give --sharp-radius, --twist, --design-speed or --preset")
     return limits
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from ..errors import InputError
+from ..errors import InputError, UsageError
 from .. import pipeline
 from ..profile_export import write_profile
 from .common import add_imu_arguments, add_log_arguments, imu_kwargs, log_kwargs, positive_float
@@ -34,7 +34,7 @@ def run(args: argparse.Namespace) -> int:
     if out != "-" and not out.lower().endswith((".csv", ".txt", ".xlsx")):
         raise InputError(out, "unknown output type; use a .csv or .xlsx file name, or - for stdout")
     if args.samples is not None and args.samples < 2:
-        raise InputError(None, "--samples must be at least 2")
+        raise UsageError(None, "--samples must be at least 2")
     result = pipeline.run_profile(args.log, step_m=args.step, n_samples=args.samples, **log_kwargs(args), **imu_kwargs(args))
     profile = result.profile
     if len(profile) == 0:
