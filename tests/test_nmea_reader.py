@@ -102,6 +102,25 @@ def test_log_without_any_checksum_is_accepted_with_a_note():
     assert any("unverified" in n for n in track.source.notes)
 
 
+def test_in_a_log_without_checksums_a_sentence_cut_short_is_skipped():
+    # GGA has 14 fields after its address (NMEA 0183, from memory); a line ending at the HDOP
+    # is cut short, not a fix without height.
+    lines = [
+        "$GPGGA,120000,4807.038,N,01131.000,E,1,08,0.9,545.4,M,46.9,M,,",
+        "$GPGGA,120001,4807.039,N,01131.000,E,1,08,0.9,",
+    ]
+    track = read_nmea("a.nmea", log(*lines))
+    assert len(track) == 1 and track.source.skipped == {"cut short": 1}
+
+
+def test_a_line_break_inside_a_checksummed_sentence_does_not_pass_its_head_off_as_a_fix():
+    # The byte before the altitude turned into a line feed (found by the fuzz test): the head
+    # has no checksum and no height, the tail is not a sentence; no fix may come of it.
+    damaged = GGA_EXAMPLE.replace(",545.4,", ",\n545.4,")
+    with pytest.raises(InputError, match="cut short"):
+        read_nmea("a.nmea", damaged.encode("ascii") + b"\r\n")
+
+
 # --- decoding ----------------------------------------------------------------------------------
 
 

@@ -26,7 +26,10 @@ Decisions (documented here because a log does not say)
 * A sentence *without* checksum is accepted only when no sentence in the file carries one (a
   receiver configured that way); the notes then say the sentences were not verified. When the
   rest of the file has checksums, a sentence without one is almost always a line cut short (power
-  loss, full card) and is skipped as ``"no checksum"``.
+  loss, full card) and is skipped as ``"no checksum"``. In a file without checksums a sentence
+  with fewer fields than its type's shortest standard form (``FULL_FIELDS``) is such a line and
+  is skipped as ``"cut short"``: a damaged line break would otherwise pass a truncated GGA off
+  as a fix without height.
 * One fix per epoch: consecutive sentences with the same time of day are merged. Position comes
   from GGA, else GNS, else RMC; speed and course from RMC, else VTG; date from RMC.
 * A course outside 0-360 degrees (or a negative speed) makes the sentence malformed; 360 is read
@@ -72,6 +75,10 @@ ROLLOVER_S = SECONDS_PER_DAY / 2
 
 _BLANK = bytes(range(0x21))  # control characters and space
 _USED_TYPES = (b"GGA", b"RMC", b"GNS", b"VTG")
+#: Comma-separated elements (the address included) of each type's shortest standard form, NMEA
+#: 0183 (from memory): GGA 14 fields; RMC 11 (2.0; 2.3 adds the mode); GNS 12 (4.1 adds the
+#: navigation status); VTG 8 (2.3 adds the mode).
+FULL_FIELDS = {b"GGA": 15, b"RMC": 12, b"GNS": 13, b"VTG": 9}
 _HEX = np.full(256, -1, dtype=np.int16)
 for _i, _c in enumerate(b"0123456789ABCDEF"):
     _HEX[_c] = _i
@@ -81,6 +88,7 @@ for _i, _c in enumerate(b"abcdef"):
 SKIP_BAD_CHECKSUM = "bad checksum"
 SKIP_NO_CHECKSUM = "no checksum"
 SKIP_MALFORMED = "malformed"
+SKIP_CUT_SHORT = "cut short"
 SKIP_NOT_NMEA = "not an NMEA sentence"
 SKIP_GGA_INVALID = "invalid fix (GGA quality 0)"
 SKIP_RMC_VOID = "void fix (RMC status V)"
@@ -172,7 +180,7 @@ def read_nmea(path: str, data: bytes) -> Track:
         listed = ", ".join(f"{k} x{v}" for k, v in sorted(ignored.items()))
         notes.append(f"ignored sentence types: {listed}")
 
-    epochs = _assemble(data, starts[idx], body_end[idx], kinds, tally)
+    epochs = _assemble(data, starts[idx], body_end[idx], kinds, tally, verified=bool(has_star.any()))
     if not epochs:
         raise InputError(path, f"no usable NMEA fixes (GGA/RMC/GNS) found{_skip_text(tally)}")
 
@@ -317,9 +325,11 @@ def _classify(
 
 
 def _assemble(
-    data: bytes, starts: np.ndarray, body_ends: np.ndarray, kinds: list, tally: _Tally
+    data: bytes, starts: np.ndarray, body_ends: np.ndarray, kinds: list, tally: _Tally, verified: bool = True
 ) -> list[_Epoch]:
-    """Decode GGA/RMC/GNS/VTG in file order and merge consecutive same-time sentences."""
+    """Decode GGA/RMC/GNS/VTG in file order and merge consecutive same-time sentences.
+    ``verified``: the sentences passed their checksums; without, a sentence shorter than
+    ``FULL_FIELDS`` is skipped as cut short."""
     epochs: list[_Epoch] = []
     current: _Epoch | None = None
     for s, e, kind in zip(starts.tolist(), body_ends.tolist(), kinds):
@@ -331,6 +341,9 @@ def _assemble(
             tally.skip(SKIP_MALFORMED)
             continue
         f = text.split(",")
+        if not verified and len(f) < FULL_FIELDS[kind]:
+            tally.skip(SKIP_CUT_SHORT)
+            continue
         try:
             if kind == b"VTG":
                 speed, course = _vtg(f)
