@@ -21,6 +21,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 from .errors import InputError
+from .jump_ends import end_culprit, lagrange_weights
 from .track import Track
 
 #: Mean Earth radius for the equirectangular step approximation, m (IUGG mean radius R1,
@@ -185,8 +186,9 @@ def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 4) -> np.ndarra
     ``z`` robust sigmas of the log's residuals (MAD of the per-axis components, which are about
     Gaussian with zero mean) *and* is the local peak (a jump also shows, at 2/3 of its size, in
     the prediction of its neighbours). Repeated ``passes`` times with suspects removed, so a
-    cluster of jumps is peeled one by one. The two fixes at each segment end have too few
-    neighbours and are not tested.
+    cluster of jumps is peeled one by one. The two fixes at each segment end have no window of
+    their own: a peak on the third is put on whichever of the three explains it best
+    (``survey.jump_ends``).
 
     Work: the first pass predicts every fix, in blocks of ``_JUMP_BLOCK`` (small temporaries);
     a later pass predicts again only the fixes within two places of a fix just removed (no other
@@ -223,6 +225,7 @@ def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 4) -> np.ndarra
         bad, at = cand[hit], at[hit]
         if bad.size == 0:
             break
+        bad, at = _blame_segment_ends(bad, at, chain, seg, t, pe, pn)
         suspect[bad] = True
         if p == passes - 1:
             break
@@ -284,7 +287,7 @@ def _predict(pe, pn, t, seg, sel, res, size, tested) -> None:
     size[i[~ok]] = 0.0
     if not ok.any():
         return
-    w0, w1, w2, w3 = _lagrange_weights((t0[ok], t1[ok], t2[ok], t3[ok]), ti[ok])
+    w0, w1, w2, w3 = lagrange_weights((t0[ok], t1[ok], t2[ok], t3[ok]), ti[ok])
     i = i[ok]
     for axis, p in enumerate((pe, pn)):
         p0, p1, pi, p2, p3 = (p[s][ok] for s in sel)
@@ -292,13 +295,26 @@ def _predict(pe, pn, t, seg, sel, res, size, tested) -> None:
     size[i] = np.hypot(res[0, i], res[1, i])
 
 
-def _lagrange_weights(nodes: tuple[np.ndarray, ...], at: np.ndarray) -> list[np.ndarray]:
-    """Weights of the Lagrange polynomial through ``nodes`` (each an (m,) array) at ``at``."""
-    weights = []
-    for j, xj in enumerate(nodes):  # loops over the 4 nodes, not over fixes
-        w = np.ones_like(at)
-        for q, xq in enumerate(nodes):
-            if q != j:
-                w *= (at - xq) / (xj - xq)
-        weights.append(w)
-    return weights
+def _blame_segment_ends(bad, at, chain, seg, t, pe, pn):
+    """Flagged fixes ``bad`` at chain places ``at``, with a flag on the first (last) tested fix
+    of a segment moved to the one of its first (last) three fixes whose jump explains the
+    residuals best (``survey.jump_ends``): the two fixes at a segment end have no window of
+    their own, so their jump peaks on the third. A loop over flagged fixes, not over fixes."""
+    segc = seg[chain]
+    bad, at = bad.copy(), at.copy()
+    for i, a in enumerate(at):
+        s0 = int(np.searchsorted(segc, segc[a], "left"))
+        s1 = int(np.searchsorted(segc, segc[a], "right"))
+        if s1 - s0 < 6:
+            continue
+        if a - s0 == 2:
+            places = chain[s0 : s0 + 7]
+            k = end_culprit(t[places], np.column_stack([pe[places], pn[places]]))
+            at[i] = s0 + k
+        elif s1 - 1 - a == 2:
+            places = chain[max(s1 - 7, s0) : s1][::-1]
+            k = end_culprit(-t[places], np.column_stack([pe[places], pn[places]]))
+            at[i] = s1 - 1 - k
+        bad[i] = chain[at[i]]
+    order = np.argsort(at, kind="stable")
+    return bad[order], at[order]

@@ -125,6 +125,8 @@ from scipy.linalg import cho_solve_banded, cholesky_banded
 from scipy.linalg.lapack import dtbtrs
 from scipy.optimize import minimize
 
+from .jump_ends import end_culprit, lagrange_weights
+
 FloatArray = NDArray[np.float64]
 
 N_PATH = 4  # p, v, a, j
@@ -1231,8 +1233,10 @@ def screen_outliers(t: FloatArray, Y: FloatArray, z: float = 6.0, passes: int = 
     of the order of the receiver noise, a jump its full size. A fix is flagged where the residual
     norm exceeds ``z`` robust sigmas (median absolute deviation of the residual components,
     scaled by 1.4826: Rousseeuw & Croux 1993, common practice) and is the local peak (the jump
-    also shows, at 2/3 of its size, in its neighbours' predictions). Repeated ``passes`` times
-    with flagged fixes removed so clusters are peeled.
+    also shows, at 2/3 of its size, in its neighbours' predictions). The first and last two
+    fixes have no window of their own: a peak on the first (last) tested fix is put on the one
+    of the end fixes whose jump explains the residuals best (``survey.jump_ends``). Repeated
+    ``passes`` times with flagged fixes removed so clusters are peeled.
 
     Parameters
     ----------
@@ -1256,11 +1260,7 @@ def screen_outliers(t: FloatArray, Y: FloatArray, z: float = 6.0, passes: int = 
         nodes = (tt[:-4], tt[1:-3], tt[3:-1], tt[4:])  # neighbours i-2, i-1, i+1, i+2
         dev = []
         res = [c[2:-2].copy() for c in cols]
-        for j in range(4):  # Lagrange weight of node j: four nodes, not a loop over fixes
-            w = np.ones_like(ti)
-            for q in range(4):
-                if q != j:
-                    w *= (ti - nodes[q]) / (nodes[j] - nodes[q])
+        for j, w in enumerate(lagrange_weights(nodes, ti)):  # four nodes, not a loop over fixes
             lo = (0, 1, 3, 4)[j]
             for r, c in zip(res, cols):
                 r -= w * c[lo : lo + len(ti)]
@@ -1276,8 +1276,21 @@ def screen_outliers(t: FloatArray, Y: FloatArray, z: float = 6.0, passes: int = 
         flag = (size > limit) & peak
         if not flag.any():
             break
+        _blame_chain_ends(flag, tt, Y[idx])
         out[idx[flag]] = True
     return out
+
+
+def _blame_chain_ends(flag: NDArray[np.bool_], t: FloatArray, Y: FloatArray) -> None:
+    """Move a flag on the first (last) tested fix of a chain to the fix among the first (last)
+    three whose single jump explains the residuals best (``survey.jump_ends``), in place."""
+    m = len(flag)
+    if m >= 6 and flag[2]:
+        k = end_culprit(t, Y)
+        flag[2], flag[k] = False, True
+    if m >= 6 and flag[m - 3]:
+        k = end_culprit(-t[::-1], Y[::-1])
+        flag[m - 3], flag[m - 1 - k] = False, True
 
 
 # --------------------------------------------------------------------------------------------

@@ -164,3 +164,15 @@ def test_clusters_of_jumps_are_peeled_pass_by_pass_as_a_fresh_prediction_finds()
     want = _suspects_by_direct_prediction(t, north, east, segment)
     assert np.flatnonzero(got).tolist() == np.flatnonzero(want).tolist()
     assert jump_suspects(track, passes=1).sum() < got.sum()  # later passes found more
+
+
+def test_a_jump_at_a_segment_end_is_flagged_and_not_its_good_neighbours():
+    # The two end fixes have no window of their own (survey.jump_ends): the jump is put on the
+    # fix that made it, found by construction, and no good fix is flagged.
+    rng = np.random.default_rng(12)
+    t = np.arange(300.0)
+    north = 1.4 * t + rng.normal(0, 0.3, t.size)
+    east = rng.normal(0, 0.3, t.size)
+    east[-2] += 30.0  # the second-to-last fix
+    north[1] -= 30.0  # the second fix
+    assert np.flatnonzero(jump_suspects(track_from_metres(t, north, east))).tolist() == [1, t.size - 2]

@@ -103,3 +103,17 @@ def test_csv_numbers_round_trip_to_half_a_unit_of_their_last_decimal(tmp_path):
         got = np.array([float(c) for c, e in zip(cells, empty) if not e])
         tol = 0.5 * 10.0 ** -CSV_DECIMALS[name] * (1 + 1e-9) + 1e-12 * np.abs(want[~empty])
         assert np.all(np.abs(got - want[~empty]) <= tol), name
+
+
+def test_a_jump_at_the_second_to_last_fix_does_not_shorten_the_chainage():
+    # A 30 m multipath jump at a log's second-to-last fix used to survive both jump tests (the
+    # end fixes have no window of their own) while seven good fixes before it were dropped;
+    # the noise fit then took the jump for motion (here the profile came out 5.6 % long).
+    # True length: the road's closed-form chainage between the first and last fix times.
+    traj = S.road_alignment()
+    f = S.add_gnss_error(traj, "dual", np.random.default_rng(6))
+    f.enu_m[-2] += [30.0, -20.0, 0.0]
+    p = _build(S.fixes_to_track(f, FRAME.inverse))
+    true_length = float(np.ptp(np.interp(f.time_s[[0, -1]], traj.time_s, traj.chainage_m)))
+    assert abs(p.settings["path_length_m"] / true_length - 1.0) < 0.005  # the chainage target
+    assert p.settings["snap_psd_h_m2_s7"] < 1.0

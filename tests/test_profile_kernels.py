@@ -208,3 +208,13 @@ def test_banded_precision_equals_the_dense_assembly_from_its_definition(wander, 
     scale = np.abs(want).max()
     assert system.ab.shape == (u + 1, n)
     assert np.allclose(system.ab, want, rtol=1e-9, atol=1e-12 * scale)
+
+
+def test_screening_puts_a_jump_at_the_last_fixes_on_that_fix_not_its_neighbours():
+    # a 30 m jump at the second-to-last fix among 0.3 m fixes: the end fixes have no window of
+    # their own (survey.jump_ends); the flagged fix is the one made to jump (by construction)
+    rng = np.random.default_rng(5)
+    t = np.arange(600) * 0.1
+    Y = np.column_stack([22.0 * t, 0.5 * t]) + rng.normal(0.0, 0.3, (600, 2))
+    Y[-2] += [30.0, 10.0]
+    assert np.flatnonzero(S.screen_outliers(t, Y)).tolist() == [598]
