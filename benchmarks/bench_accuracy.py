@@ -20,6 +20,9 @@ Metrics (all on "curved parts": stations whose true kappa exceeds half the case'
   len            relative error of the total path length against the true length between the
                  log's first and last fix (a 1 Hz log of a fast road ends up to one fix interval
                  before the end of the closed-form curve: 20.7 m of 1420.7 m on the 1 Hz road)
+  len max, k_med max
+                 with --seeds K > 1: the worst seed's len and k_med (a median over seeds hides
+                 one log that goes badly wrong; two such were found this way and fixed)
   lenF           diagnostic: the 1-sigma of that length error which the receiver's slow wander
                  alone leaves, whatever the method: the along-track wander at the two ends of a log
                  of duration T is not observable from positions, sd = sqrt(2 g^2 (1 - exp(-T/tau)))
@@ -220,8 +223,9 @@ def main(argv=None) -> int:
     if args.standard:
         cols += ["S_k_med", "S_k_rms", "S_R_med", "S_t_med", "S_tp95/k"]
     extra = f" {'x std':>6s} {'x std t':>7s} {'S secs':>6s} {'std pass':>8s}" if args.standard else ""
-    print(f"{'case':29s} " + " ".join(f"{c:>8s}" for c in cols) + f" {'x base':>7s} {'secs':>5s}{extra}"
-          "  target -> pass")
+    worst = ["len", "k_med"] if args.seeds > 1 else []  # the worst seed's, beside the medians
+    print(f"{'case':29s} " + " ".join(f"{c:>8s}" for c in cols) + "".join(f" {c + ' max':>9s}" for c in worst)
+          + f" {'x base':>7s} {'secs':>5s}{extra}  target -> pass")
     done: dict[str, dict] = {}
     for number, label, make, grade, corrupt, target, head in cases(args.quick):
         runs = [run_case(make(), grade, np.random.default_rng([seed, number]), corrupt,
@@ -243,6 +247,7 @@ def main(argv=None) -> int:
         ratio = m[f"B_{head}"] / m[head] if m[head] > 0 else np.inf
         tgt = ", ".join(f"{k}<={v:.3g}" for k, v in checks.items())
         cells = " ".join(f"{m[c]:8.2%}" if np.isfinite(m[c]) else f"{'-':>8s}" for c in cols)
+        cells += "".join(f" {max(r[c] for r in runs):9.2%}" for c in worst)
         extra = ""
         if args.standard:
             by_time = f"{m['S_R_med'] / m['R_t']:7.2f}" if head == "R_med" else f"{'-':>7s}"
