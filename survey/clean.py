@@ -308,12 +308,12 @@ def _blame_segment_ends(bad, at, chain, seg, t, pe, pn):
         if s1 - s0 < 6:
             continue
         if a - s0 == 2:
-            places = chain[s0 : s0 + 7]
+            places = chain[s0 : min(s0 + 7, s1)]
             k = end_culprit(t[places], np.column_stack([pe[places], pn[places]]))
             at[i] = s0 + k
         elif s1 - 1 - a == 2:
-            places = chain[max(s1 - 7, s0) : s1][::-1]
-            k = end_culprit(-t[places], np.column_stack([pe[places], pn[places]]))
+            places = chain[max(s1 - 7, s0) : s1]
+            k = end_culprit(t[places], np.column_stack([pe[places], pn[places]]), from_end=True)
             at[i] = s1 - 1 - k
         bad[i] = chain[at[i]]
     order = np.argsort(at, kind="stable")

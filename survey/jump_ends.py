@@ -40,17 +40,20 @@ def lagrange_weights(nodes: tuple[np.ndarray, ...], at: np.ndarray) -> list[np.n
     return weights
 
 
-def end_culprit(t: np.ndarray, Y: np.ndarray) -> int:
-    """Place (0, 1 or 2) of the single jump that best explains the first fixes of a chain.
+def end_culprit(t: np.ndarray, Y: np.ndarray, from_end: bool = False) -> int:
+    """Place (0, 1 or 2, counted from the chain's end) of the single jump that best explains the
+    fixes at one end of a chain.
 
     Parameters
     ----------
     t
-        (m,) strictly increasing times of the first m fixes of the chain (s; at least 6 are
-        needed to tell the places apart, at most 7 are used). For the far end of a chain pass
-        the last fixes reversed, with times negated.
+        (m,) strictly increasing times of the fixes at that end (s; at least 6 are needed to
+        tell the places apart, the 7 nearest the end are used).
     Y
         (m, A) their positions, m (any A axes).
+    from_end
+        False: ``t``, ``Y`` are the first fixes of the chain, places counted from the first.
+        True: they are the last fixes, places counted back from the last.
 
     Returns
     -------
@@ -58,8 +61,8 @@ def end_culprit(t: np.ndarray, Y: np.ndarray) -> int:
     residual sum of squares; 2 (the window's own centre, as the peak test says) when there
     are too few fixes to tell.
     """
-    t = np.asarray(t, float)[:7]
-    Y = np.asarray(Y, float)[:7]
+    t, Y = np.asarray(t, float), np.asarray(Y, float)
+    t, Y = (-t[-7:][::-1], Y[-7:][::-1]) if from_end else (t[:7], Y[:7])
     m = len(t)
     if m < 6:
         return 2

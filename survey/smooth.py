@@ -1289,7 +1289,7 @@ def _blame_chain_ends(flag: NDArray[np.bool_], t: FloatArray, Y: FloatArray) -> 
         k = end_culprit(t, Y)
         flag[2], flag[k] = False, True
     if m >= 6 and flag[m - 3]:
-        k = end_culprit(-t[::-1], Y[::-1])
+        k = end_culprit(t, Y, from_end=True)
         flag[m - 3], flag[m - 1 - k] = False, True
 
 

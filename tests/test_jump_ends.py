@@ -28,11 +28,11 @@ def test_a_jump_at_one_of_the_first_three_fixes_is_put_on_that_fix(place):
 
 
 @pytest.mark.parametrize("place", [0, 1, 2])
-def test_the_far_end_is_read_reversed_with_times_negated(place):
+def test_at_the_far_end_places_are_counted_back_from_the_last_fix(place):
     rng = np.random.default_rng(10 + place)
     t, Y = _walk(rng, 12)
     Y[-1 - place] += [-25.0, 18.0]
-    assert end_culprit(-t[::-1], Y[::-1]) == place
+    assert end_culprit(t, Y, from_end=True) == place
 
 
 def test_too_few_fixes_to_tell_keep_the_window_centre():
