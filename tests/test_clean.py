@@ -176,3 +176,17 @@ def test_a_jump_at_a_segment_end_is_flagged_and_not_its_good_neighbours():
     east[-2] += 30.0  # the second-to-last fix
     north[1] -= 30.0  # the second fix
     assert np.flatnonzero(jump_suspects(track_from_metres(t, north, east))).tolist() == [1, t.size - 2]
+
+
+def test_a_jump_in_a_six_fix_segment_is_placed_from_that_segment_alone():
+    # The end test may only use the segment's own fixes: a short segment must not borrow the
+    # next segment's first fix (a new track segment of the log, a second later but 400 m on).
+    # The jump is put in by construction.
+    rng = np.random.default_rng(21)
+    t = np.r_[np.arange(6.0), 6.0 + np.arange(300.0)]
+    segment = np.r_[np.zeros(6, int), np.ones(300, int)]
+    north = np.r_[1.4 * np.arange(6.0), 400.0 + 1.4 * np.arange(300.0)] + rng.normal(0, 0.3, t.size)
+    east = rng.normal(0, 0.3, t.size)
+    east[1] += 30.0
+    suspect = jump_suspects(track_from_metres(t, north, east, segment=segment))
+    assert np.flatnonzero(suspect).tolist() == [1]
