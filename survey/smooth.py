@@ -1276,20 +1276,21 @@ def screen_outliers(t: FloatArray, Y: FloatArray, z: float = 6.0, passes: int = 
         flag = (size > limit) & peak
         if not flag.any():
             break
-        _blame_chain_ends(flag, tt, Y[idx])
+        _blame_chain_ends(flag, tt, Y, idx)
         out[idx[flag]] = True
     return out
 
 
-def _blame_chain_ends(flag: NDArray[np.bool_], t: FloatArray, Y: FloatArray) -> None:
-    """Move a flag on the first (last) tested fix of a chain to the fix among the first (last)
-    three whose single jump explains the residuals best (``survey.jump_ends``), in place."""
+def _blame_chain_ends(flag: NDArray[np.bool_], t: FloatArray, Y: FloatArray, idx: NDArray[np.int64]) -> None:
+    """Move a flag on the first (last) tested fix of the chain ``idx`` (rows of ``Y``; times
+    ``t``) to the fix among its first (last) three whose single jump explains the residuals
+    best (``survey.jump_ends``), in place."""
     m = len(flag)
     if m >= 6 and flag[2]:
-        k = end_culprit(t, Y)
+        k = end_culprit(t[:7], Y[idx[:7]])
         flag[2], flag[k] = False, True
     if m >= 6 and flag[m - 3]:
-        k = end_culprit(t, Y, from_end=True)
+        k = end_culprit(t[-7:], Y[idx[-7:]], from_end=True)
         flag[m - 3], flag[m - 1 - k] = False, True
 
 
