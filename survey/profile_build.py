@@ -64,6 +64,9 @@ Steps (one-way):
    0.4 % with the refit; the level loop 0.3 %).
 8. Stations every ``step_m`` of chainage; geometry from the estimate (``survey.geometry``). Torsion
    is NaN with reason TORSION_LOW_CURVATURE where kappa < ``kappa_sigmas`` x its 1-sigma.
+   Stations that bend with a radius under ``UNDERSAMPLED_RADIUS_PER_SPACING`` x the distance
+   between the fixes around them (a sparse log, or a bend inside a short outage) are named in
+   a message: no smoother can measure such a bend (``_undersampled_bends``).
 """
 
 from __future__ import annotations
@@ -212,6 +215,8 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, s
     cols, knots, lengths = _place_stations(smoothed_stretches(), step_m, has_time, has_height, cfg, messages)
     if cols is None:
         return empty_profile(track, frame, step_m, cfg, messages)
+    if has_time:
+        messages.extend(_undersampled_bends(cols, stretches, cfg["kappa_sigmas"]))
     settings_out = _settings(cfg, step_m, model_h, model_v if has_height else None, use_acc, has_time, knots)
     settings_out["plan_prior"] = ("constant jerk" if turn_factor is None else
                                   f"turn-aware at the estimated turn rate, snap density x {turn_factor:.4g} "
@@ -360,6 +365,40 @@ def receiver_velocity(track: Track, frame, cfg: dict) -> np.ndarray | None:
         return None
     ve, vn = frame.ground_velocity(track.lat_deg, track.lon_deg, speed, track.course_deg)
     return np.column_stack([ve, vn])
+
+
+#: A bend is under-sampled where its radius is below this many times the plan distance between
+#: the two fixes around it: a chord spanning the angle d/R of an arc is shorter than the arc by
+#: 1 - sin(x)/x with x = d/(2R), about (d/R)^2 / 24 (closed form), which reaches 1 % at
+#: d/R = 0.49, i.e. R = 2.04 d. Fewer fixes on a bend than that and no smoother can tell its
+#: radius: it reads too large, and the chainage through it too short.
+UNDERSAMPLED_RADIUS_PER_SPACING = 2.0
+
+
+def _undersampled_bends(cols: dict, stretches, kappa_sigmas: float) -> list[str]:
+    """A message naming the stations that bend (curvature above ``kappa_sigmas`` x its
+    1-sigma) with a radius below ``UNDERSAMPLED_RADIUS_PER_SPACING`` times the distance
+    between the two fixes around them (logs with time; none if no station does), else
+    nothing. The distance is the chainage between the two fix times (the receiver's noise
+    would make the raw chord between two slow fixes metres long)."""
+    spacing = np.full(len(cols["chainage_m"]), np.nan)
+    for sid, t, *_ in stretches:
+        at = np.flatnonzero(cols["segment"] == sid)
+        if at.size < 2 or len(t) < 2:
+            continue
+        s_fix = np.interp(t, cols["time_s"][at], cols["chainage_m"][at])
+        i = np.clip(np.searchsorted(t, cols["time_s"][at]) - 1, 0, len(t) - 2)
+        spacing[at] = s_fix[i + 1] - s_fix[i]
+    with np.errstate(invalid="ignore"):
+        bends = cols["curvature_per_m"] > kappa_sigmas * cols["curvature_sd_per_m"]
+        tight = bends & (cols["radius_m"] < UNDERSAMPLED_RADIUS_PER_SPACING * spacing)
+    if not tight.any():
+        return []
+    ch = cols["chainage_m"][tight]
+    return [f"{int(tight.sum())} stations ({ch.min():.0f}-{ch.max():.0f} m) bend with a radius under "
+            f"{UNDERSAMPLED_RADIUS_PER_SPACING:g}x the distance between the fixes around them (up to "
+            f"{np.nanmax(spacing[tight]):.0f} m): too few fixes on those bends to measure them; their "
+            f"radius reads too large and the chainage through them too short"]
 
 
 def _fit_models(stretches, use_acc, has_height, cfg):

@@ -117,3 +117,25 @@ def test_a_jump_at_the_second_to_last_fix_does_not_shorten_the_chainage():
     true_length = float(np.ptp(np.interp(f.time_s[[0, -1]], traj.time_s, traj.chainage_m)))
     assert abs(p.settings["path_length_m"] / true_length - 1.0) < 0.005  # the chainage target
     assert p.settings["snap_psd_h_m2_s7"] < 1.0
+
+
+def _drive(rate_hz):
+    # a 40 m radius bend between straights, driven at 15 m/s (closed-form alignment)
+    curve = S.alignment_curve([("tangent", 300.0, 0.0), ("spiral", 30.0, 1 / 40.0), ("arc", 120.0, 1 / 40.0),
+                               ("spiral", 30.0, 0.0), ("tangent", 300.0, 0.0)])
+    traj = S.sample_path(curve, speed_mps=15.0, rate_hz=rate_hz)
+    return _build(S.fixes_to_track(S.add_gnss_error(traj, "dual", np.random.default_rng(3)), FRAME.inverse))
+
+
+def test_a_bend_with_too_few_fixes_on_it_is_named_in_the_messages():
+    # Fixes 75 m apart (5 s at 15 m/s) on a 40 m radius: a chord over the angle d/R is shorter
+    # than its arc by about (d/R)^2/24 (closed form), 1 % already at R = 2 d; here R < d.
+    p = _drive(0.2)
+    said = [m for m in p.messages if "distance between the fixes" in m]
+    assert len(said) == 1 and "too few fixes on those bends" in said[0]
+
+
+def test_a_well_sampled_bend_gets_no_such_message():
+    # 1 Hz: fixes 15 m apart on a 40 m radius, R > 2 d.
+    p = _drive(1.0)
+    assert not [m for m in p.messages if "distance between the fixes" in m]
