@@ -220,3 +220,15 @@ def test_end_to_end_on_a_gpx_road_log(tmp_path, capsys, grade, radius_rel):
             assert start == pytest.approx(a, abs=10.0)
             assert end == pytest.approx(b, abs=10.0)
             assert float(r["min_radius_m"]) == pytest.approx(100.0, rel=radius_rel)
+
+
+def test_the_profiles_notes_are_printed_on_stderr(log, tmp_path, monkeypatch, capsys):
+    # `flag` computes the same profile as `trackframe profile`, which prints its notes (e.g. a
+    # bend with too few fixes on it); `flag` must not hide them.
+    from dataclasses import replace
+
+    noted = replace(road_profile(ROAD, step_m=1.0, grade=0.02), messages=("a note for the surveyor",))
+    monkeypatch.setattr(survey.pipeline, "run_profile",
+                        lambda path, crs=None, step_m=1.0, **kw: survey.pipeline.ProfileRun(None, None, None, noted))
+    assert main(["flag", str(log), "--sharp-radius", "150", "-o", str(tmp_path / "found.csv")]) == 0
+    assert "note: a note for the surveyor" in capsys.readouterr().err

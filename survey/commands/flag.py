@@ -157,6 +157,8 @@ def run(args: argparse.Namespace) -> int:
     for w in found.warnings:
         print(f"trackframe: warning: {w}", file=sys.stderr)
     profile, sections = found.profile, list(found.sections)
+    for m in profile.messages:  # the profile's own notes, as `trackframe profile` prints them
+        print(f"note: {m}", file=sys.stderr)
     run_info = RunInfo(
         input_path=str(args.log),
         input_sha256=found.input_sha256,
