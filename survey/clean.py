@@ -21,7 +21,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 from .errors import InputError
-from .jump_ends import end_culprit, lagrange_weights
+from .jump_ends import end_place, lagrange_weights
 from .track import Track
 
 #: Mean Earth radius for the equirectangular step approximation, m (IUGG mean radius R1,
@@ -298,23 +298,20 @@ def _predict(pe, pn, t, seg, sel, res, size, tested) -> None:
 def _blame_segment_ends(bad, at, chain, seg, t, pe, pn):
     """Flagged fixes ``bad`` at chain places ``at``, with a flag on the first (last) tested fix
     of a segment moved to the one of its first (last) three fixes whose jump explains the
-    residuals best (``survey.jump_ends``): the two fixes at a segment end have no window of
-    their own, so their jump peaks on the third. A loop over flagged fixes, not over fixes."""
+    residuals best (``survey.jump_ends.end_place``): the two fixes at a segment end have no
+    window of their own, so their jump peaks on the third. A loop over flagged fixes, not over
+    fixes."""
     segc = seg[chain]
     bad, at = bad.copy(), at.copy()
     for i, a in enumerate(at):
         s0 = int(np.searchsorted(segc, segc[a], "left"))
         s1 = int(np.searchsorted(segc, segc[a], "right"))
-        if s1 - s0 < 6:
-            continue
-        if a - s0 == 2:
-            places = chain[s0 : min(s0 + 7, s1)]
-            k = end_culprit(t[places], np.column_stack([pe[places], pn[places]]))
-            at[i] = s0 + k
-        elif s1 - 1 - a == 2:
-            places = chain[max(s1 - 7, s0) : s1]
-            k = end_culprit(t[places], np.column_stack([pe[places], pn[places]]), from_end=True)
-            at[i] = s1 - 1 - k
+        own = chain[s0:s1]  # the segment's places (a view)
+
+        def window(lo, hi, own=own):
+            return t[own[lo:hi]], np.column_stack([pe[own[lo:hi]], pn[own[lo:hi]]])
+
+        at[i] = s0 + end_place(int(a) - s0, s1 - s0, window)
         bad[i] = chain[at[i]]
     order = np.argsort(at, kind="stable")
     return bad[order], at[order]

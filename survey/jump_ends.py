@@ -22,9 +22,11 @@ residuals each on its own, as independent, put a jump at place 0 on place 1 in o
 
 from __future__ import annotations
 
+from typing import Callable
+
 import numpy as np
 
-__all__ = ["lagrange_weights", "end_culprit"]
+__all__ = ["lagrange_weights", "end_culprit", "end_place"]
 
 
 def lagrange_weights(nodes: tuple[np.ndarray, ...], at: np.ndarray) -> list[np.ndarray]:
@@ -38,6 +40,23 @@ def lagrange_weights(nodes: tuple[np.ndarray, ...], at: np.ndarray) -> list[np.n
                 w *= (at - xq) / (xj - xq)
         weights.append(w)
     return weights
+
+
+def end_place(place: int, m: int, window: Callable[[int, int], tuple[np.ndarray, np.ndarray]]) -> int:
+    """Where the jump flagged at ``place`` of a chain of ``m`` fixes is: ``place`` itself,
+    unless it is the third fix from either end (the first one the window test reaches there),
+    in which case the fix among the three at that end that ``end_culprit`` picks.
+
+    ``window(a, b)`` gives the times (b - a,) and positions (b - a, A) of places a .. b-1; only
+    the seven fixes at the end in question are asked for. Chains under 6 fixes keep ``place``.
+    """
+    if m < 6:
+        return place
+    if place == 2:
+        return end_culprit(*window(0, min(7, m)))
+    if place == m - 3:
+        return m - 1 - end_culprit(*window(max(m - 7, 0), m), from_end=True)
+    return place
 
 
 def end_culprit(t: np.ndarray, Y: np.ndarray, from_end: bool = False) -> int:

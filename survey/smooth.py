@@ -125,7 +125,7 @@ from scipy.linalg import cho_solve_banded, cholesky_banded
 from scipy.linalg.lapack import dtbtrs
 from scipy.optimize import minimize
 
-from .jump_ends import end_culprit, lagrange_weights
+from .jump_ends import end_place, lagrange_weights
 
 FloatArray = NDArray[np.float64]
 
@@ -1284,14 +1284,12 @@ def screen_outliers(t: FloatArray, Y: FloatArray, z: float = 6.0, passes: int = 
 def _blame_chain_ends(flag: NDArray[np.bool_], t: FloatArray, Y: FloatArray, idx: NDArray[np.int64]) -> None:
     """Move a flag on the first (last) tested fix of the chain ``idx`` (rows of ``Y``; times
     ``t``) to the fix among its first (last) three whose single jump explains the residuals
-    best (``survey.jump_ends``), in place."""
+    best (``survey.jump_ends.end_place``), in place."""
     m = len(flag)
-    if m >= 6 and flag[2]:
-        k = end_culprit(t[:7], Y[idx[:7]])
-        flag[2], flag[k] = False, True
-    if m >= 6 and flag[m - 3]:
-        k = end_culprit(t[-7:], Y[idx[-7:]], from_end=True)
-        flag[m - 3], flag[m - 1 - k] = False, True
+    for place in {2, m - 3}:
+        if 0 <= place < m and flag[place]:
+            flag[place] = False
+            flag[end_place(place, m, lambda a, b: (t[a:b], Y[idx[a:b]]))] = True
 
 
 # --------------------------------------------------------------------------------------------
