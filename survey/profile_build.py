@@ -367,8 +367,8 @@ def receiver_velocity(track: Track, frame, cfg: dict) -> np.ndarray | None:
     return np.column_stack([ve, vn])
 
 
-#: A bend is under-sampled where its radius is below this many times the plan distance between
-#: the two fixes around it: a chord spanning the angle d/R of an arc is shorter than the arc by
+#: A bend is under-sampled where its radius is below this many times the distance along the
+#: path between the two fixes around it: a chord spanning the angle d/R of an arc is shorter than the arc by
 #: 1 - sin(x)/x with x = d/(2R), about (d/R)^2 / 24 (closed form), which reaches 1 % at
 #: d/R = 0.49, i.e. R = 2.04 d. Fewer fixes on a bend than that and no smoother can tell its
 #: radius: it reads too large, and the chainage through it too short.

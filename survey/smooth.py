@@ -775,15 +775,23 @@ def _exact_in_turn_rates(system: "AxisSystem", U: FloatArray, tables: list, rhs:
     def dot(a, b):  # per draw
         return np.einsum("kdsa,kdsa->s", a, b)
 
+    tested = 0  # draws whose residual (and its solve) the test below has already made
     if refit.linear_ok is None:  # test the first draw: its residual after the first-order step
         r0 = -delta(0, x[:, :, 0])[:, :, None]
-        rel2 = dot(r0, solve(r0))[0] / max(dot(rhs[:, :, :1], x[:, :, :1])[0], 1e-300)
+        z0 = solve(r0)
+        tested = 1
+        rel2 = dot(r0, z0)[0] / max(dot(rhs[:, :, :1], x[:, :, :1])[0], 1e-300)
         refit.linear_ok = bool(rel2 <= TURN_DRAW_TOL**2)
     if refit.linear_ok:
         return x
     norm0 = dot(rhs, x)  # rhs^T Lambda^-1 rhs per draw
-    R = np.stack([-delta(j, x[:, :, j]) for j in range(S)], axis=2)  # residual of the first-order step
-    Z = solve(R)
+    R = np.empty_like(x)  # residual of the first-order step, per draw
+    Z = np.empty_like(x)
+    if tested:
+        R[:, :, :1], Z[:, :, :1] = r0, z0
+    for j in range(tested, S):
+        R[:, :, j] = -delta(j, x[:, :, j])
+    Z[:, :, tested:] = solve(R[:, :, tested:])
     rz = dot(R, Z)
     P, LP = Z.copy(), R.copy()  # search directions and Lambda times them
     active = rz > TURN_DRAW_TOL**2 * norm0
