@@ -22,6 +22,7 @@ import numpy as np
 
 from .errors import InputError
 from .jump_ends import end_place, lagrange_weights
+from .jump_shape import jumps_among
 from .track import Track
 
 #: Mean Earth radius for the equirectangular step approximation, m (IUGG mean radius R1,
@@ -185,10 +186,12 @@ def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 4) -> np.ndarra
     a multipath jump leaves its full size. A fix is suspect where its horizontal residual exceeds
     ``z`` robust sigmas of the log's residuals (MAD of the per-axis components, which are about
     Gaussian with zero mean) *and* is the local peak (a jump also shows, at 2/3 of its size, in
-    the prediction of its neighbours). Repeated ``passes`` times with suspects removed, so a
-    cluster of jumps is peeled one by one. The two fixes at each segment end have no window of
-    their own: a peak on the third is put on whichever of the three explains it best
-    (``survey.jump_ends``).
+    the prediction of its neighbours). Where the fixes are sparse for the log's bends, real
+    motion leaves large residuals too; a candidate that motion at up to 1 g could have made is
+    a jump only if its residuals around it have a jump's pattern (``survey.jump_shape``).
+    Repeated ``passes`` times with suspects removed, so a cluster of jumps is peeled one by
+    one. The two fixes at each segment end have no window of their own: a peak on the third is
+    put on whichever of the three explains it best (``survey.jump_ends``).
 
     Work: the first pass predicts every fix, in blocks of ``_JUMP_BLOCK`` (small temporaries);
     a later pass predicts again only the fixes within two places of a fix just removed (no other
@@ -207,6 +210,7 @@ def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 4) -> np.ndarra
     size = np.zeros(n)  # its norm; 0 where not tested
     tested = np.zeros(n, bool)
     chain = np.arange(n)  # the fixes still in the chain, in order
+    beyond_motion = np.zeros(n, bool)  # in a window whose residual no motion can make (jumps_among)
     for a in range(2, n - 2, _JUMP_BLOCK):  # first pass: every interior fix, chain = all fixes
         b = min(n - 2, a + _JUMP_BLOCK)
         _predict(pe, pn, t, seg, [slice(a + q, b + q) for q in (-2, -1, 0, 1, 2)], res, size, tested)
@@ -226,6 +230,10 @@ def jump_suspects(track: Track, z: float = JUMP_Z, passes: int = 4) -> np.ndarra
         if bad.size == 0:
             break
         bad, at = _blame_segment_ends(bad, at, chain, seg, t, pe, pn)
+        jump = jumps_among(t, (pe, pn), chain, at, size[bad], z * sigma, beyond_motion, seg)  # not a bend
+        bad, at = bad[jump], at[jump]
+        if bad.size == 0:
+            break
         suspect[bad] = True
         if p == passes - 1:
             break

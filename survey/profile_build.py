@@ -75,6 +75,7 @@ import numpy as np
 
 from . import __version__
 from .geometry import curvature_torsion, frenet
+from .jump_shape import MAX_ACCEL_MPS2
 from .smooth import NoiseModel, choose_turn_prior, fit_noise, robust_white_var, screen_outliers, smooth_stretch
 from .stations import TORSION_LOW_CURVATURE, TORSION_NO_DATA, TORSION_OK, Profile
 from .track import HEIGHT_NONE, Track
@@ -180,12 +181,13 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, s
         if len(t) < cfg["min_fixes"] or np.ptp(y[:, 0]) + np.ptp(y[:, 1]) == 0 or t[-1] <= t[0]:
             messages.append(f"segment {sid}: {len(t)} usable distinct fixes, too few to measure; skipped")
             continue
-        scr_h = screen_outliers(t, y[:, :2])
+        accel = MAX_ACCEL_MPS2 if has_time else None  # chainage as the parameter: no acceleration
+        scr_h = screen_outliers(t, y[:, :2], max_accel=accel)
         scr_v = np.zeros(len(t), bool)
         if has_height:
             zz = np.flatnonzero(np.isfinite(y[:, 2]))
             if len(zz) >= cfg["min_fixes"]:
-                scr_v[zz] = screen_outliers(t[zz], y[zz, 2:])
+                scr_v[zz] = screen_outliers(t[zz], y[zz, 2:], max_accel=accel)
         stretches.append((int(sid), t, y, bh, bv, scr_h, scr_v | scr_h))
     if not stretches:
         messages.append("nothing to measure: no segment has enough distinct fixes that move")

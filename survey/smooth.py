@@ -126,6 +126,7 @@ from scipy.linalg.lapack import dtbtrs
 from scipy.optimize import minimize
 
 from .jump_ends import end_place, lagrange_weights
+from .jump_shape import MAX_ACCEL_MPS2, jumps_among
 
 FloatArray = NDArray[np.float64]
 
@@ -1231,7 +1232,8 @@ def noise_draws(
 # --------------------------------------------------------------------------------------------
 
 
-def screen_outliers(t: FloatArray, Y: FloatArray, z: float = 6.0, passes: int = 3) -> NDArray[np.bool_]:
+def screen_outliers(t: FloatArray, Y: FloatArray, z: float = 6.0, passes: int = 3,
+                    max_accel: float | None = MAX_ACCEL_MPS2) -> NDArray[np.bool_]:
     """Mask of gross outliers (multipath jumps), found before any noise is fitted.
 
     Maximum likelihood explains a 30 m jump among 0.3 m fixes by a path that swerves through it
@@ -1243,7 +1245,9 @@ def screen_outliers(t: FloatArray, Y: FloatArray, z: float = 6.0, passes: int = 
     scaled by 1.4826: Rousseeuw & Croux 1993, common practice) and is the local peak (the jump
     also shows, at 2/3 of its size, in its neighbours' predictions). The first and last two
     fixes have no window of their own: a peak on the first (last) tested fix is put on the one
-    of the end fixes whose jump explains the residuals best (``survey.jump_ends``). Repeated
+    of the end fixes whose jump explains the residuals best (``survey.jump_ends``). A flag that
+    motion at up to ``max_accel`` could have made is kept only where the residuals around it
+    have a jump's pattern, not a bend's (``survey.jump_shape``: bends of a sparse log). Repeated
     ``passes`` times with flagged fixes removed so clusters are peeled.
 
     Parameters
@@ -1252,11 +1256,15 @@ def screen_outliers(t: FloatArray, Y: FloatArray, z: float = 6.0, passes: int = 
         (n,) strictly increasing times (s) or chainage (m).
     Y
         (n, A) positions, m; rows with NaN are neither tested nor used.
+    max_accel
+        Largest acceleration of real motion, m/s^2; None where ``t`` is chainage (the pattern
+        alone decides).
     """
     n = len(t)
     t = np.asarray(t, float)
     bad = ~np.all(np.isfinite(Y), axis=1)
     out = np.zeros(n, bool)
+    beyond_motion = np.zeros(n, bool)  # in a window whose residual no motion can make (jumps_among)
     limit = z * np.sqrt(Y.shape[1])
     for _ in range(passes):
         idx = np.flatnonzero(~(out | bad))
@@ -1285,6 +1293,12 @@ def screen_outliers(t: FloatArray, Y: FloatArray, z: float = 6.0, passes: int = 
         if not flag.any():
             break
         _blame_chain_ends(flag, tt, Y, idx)
+        places = np.flatnonzero(flag)
+        jump = jumps_among(t, [Y[:, a] for a in range(Y.shape[1])], idx, places, size[places] * sigma,
+                           limit * sigma, beyond_motion, accel=max_accel)
+        flag[places[~jump]] = False
+        if not flag.any():  # only bends' residuals were left
+            break
         out[idx[flag]] = True
     return out
 

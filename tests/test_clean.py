@@ -123,7 +123,10 @@ def test_standing_still_with_noise_flags_no_jumps():
 
 def _suspects_by_direct_prediction(t, north, east, segment, z=8.0, passes=4):
     """Reference for ``jump_suspects``: every pass predicts every remaining interior fix afresh
-    with scipy.interpolate.lagrange through its two neighbours on each side (a loop over fixes)."""
+    with scipy.interpolate.lagrange through its two neighbours on each side (a loop over fixes).
+    It leaves out the bend test (``survey.jump_shape``): at 0.5-1.5 s between fixes on this
+    log's gentle bend every peak is beyond what motion at 1 g can make or has a jump's pattern,
+    so the two must agree."""
     from scipy.interpolate import lagrange
 
     suspect = np.zeros(t.size, bool)
