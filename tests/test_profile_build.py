@@ -139,3 +139,33 @@ def test_a_well_sampled_bend_gets_no_such_message():
     # 1 Hz: fixes 15 m apart on a 40 m radius, R > 2 d.
     p = _drive(1.0)
     assert not [m for m in p.messages if "distance between the fixes" in m]
+
+
+def _switchbacks(grade, doppler=False):
+    traj = S.switchbacks()  # 8 m hairpins at walking pace (survey.synthetic)
+    f = S.add_gnss_error(traj, grade, np.random.default_rng(7))
+    if doppler:
+        f = S.add_doppler_velocity(f, traj, grade, np.random.default_rng(8))
+    return _build(S.fixes_to_track(f, FRAME.inverse))
+
+
+def _wander_notes(p):
+    return [m for m in p.messages if "slow wander" in m]
+
+
+def test_hairpins_tight_for_the_receivers_wander_are_named():
+    # phone grade: wander 3 m, tau 60 s; turning a radian of an 8 m hairpin at 1.4 m/s takes
+    # 5.7 s, over which the wander moves 3 sqrt(2 (1 - exp(-5.7/60))) = 1.3 m (its covariance,
+    # closed form): 16 % of the radius, above the 5 % the note starts at
+    said = _wander_notes(_switchbacks("phone"))
+    assert len(said) == 1 and "radius reads large" in said[0]
+
+
+def test_hairpins_on_dual_frequency_fixes_get_no_wander_note():
+    # wander 0.25 m: 0.11 m over the same radian, 1.3 % of the radius
+    assert not _wander_notes(_switchbacks("dual"))
+
+
+def test_a_log_with_speed_and_course_gets_no_wander_note():
+    # the receiver's Doppler velocity does not wander: the smoother measures the hairpins
+    assert not _wander_notes(_switchbacks("phone", doppler=True))
