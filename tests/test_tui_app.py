@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import asyncio
 import csv
+import dataclasses
 import json
 import math
 import shutil
@@ -309,6 +310,27 @@ def test_help_lists_every_key(log_copy):
 
     body = run(go())
     assert "licensed engineer" in body and "·" in body
+
+
+def test_the_profiles_notes_are_announced_and_shown_with_the_keys(log_copy):
+    # a note of the pipeline's own kind (survey.profile_build: too few fixes on a bend)
+    log, profile = log_copy
+    note = "12 stations (150-162 m) bend with a radius under 2x the distance between the fixes around them"
+    noted = dataclasses.replace(profile, messages=(note,))
+
+    async def go():
+        app = TrackApp(log_path=str(log), profile=noted, limits=LIMITS)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await until(pilot, lambda: app.model is not None)
+            await pilot.pause()
+            status = str(app.query_one("#status").render())
+            await pilot.press("question_mark")
+            await until(pilot, lambda: isinstance(app.screen, HelpScreen))
+            return status, str(app.screen.query_one("#help-text").render())
+
+    status, body = run(go())
+    assert "1 note on this profile" in status
+    assert "NOTES ON THIS PROFILE" in body and "150-162 m" in body and "KEYS" in body
 
 
 def test_view_without_a_terminal_says_so_in_one_line(capsys, road):

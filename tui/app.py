@@ -100,7 +100,7 @@ class TrackApp(App):
         ("v", "plan view: whole track / follow the chainage window"),
         ("s or tab", "go to the section list (↑ ↓ choose, enter jumps, escape back)"),
         ("click", "put the cursor on a chart column / jump to a listed section"),
-        ("? or F1", "this help"),
+        ("? or F1", "this help, with the profile's notes"),
         ("q", "quit"),
     ]
 
@@ -242,7 +242,10 @@ class TrackApp(App):
             self.pop_screen()
         self._sections_changed()
         self.query_one("#charts").focus()
-        self.set_status(" · ".join(model.warnings) if getattr(model, "warnings", None) else "ready: ? lists every key")
+        notes = len(self._notes())
+        self.set_status(" · ".join(model.warnings) if getattr(model, "warnings", None) else
+                        f"ready: {notes} note{'s' if notes > 1 else ''} on this profile, shown with every key (?)"
+                        if notes else "ready: ? lists every key")
         self.call_after_refresh(self._first_paint)
 
     def _first_paint(self) -> None:
@@ -538,8 +541,12 @@ class TrackApp(App):
 
     # -- help ----------------------------------------------------------------------------------
 
+    def _notes(self) -> tuple[str, ...]:
+        """The profile's notes (``Profile.messages``): what the log could not tell, what was left out."""
+        return tuple(getattr(self.model.profile, "messages", ()) or ()) if self.model is not None else ()
+
     def action_help(self) -> None:
-        self.push_screen(HelpScreen(self.HELP_KEYS))
+        self.push_screen(HelpScreen(self.HELP_KEYS, self._notes()))
 
 
 STAGE_GEOMETRY = "smoothing the path and computing the geometry"

@@ -66,7 +66,8 @@ class ErrorScreen(Screen):
 
 
 class HelpScreen(ModalScreen):
-    """Every key, generated from the app's bindings, plus the glyph legend and the caution."""
+    """Every key, generated from the app's bindings, plus the glyph legend, the caution and the
+    notes the profile carries (what the log could not tell, what was left out)."""
 
     DEFAULT_CSS = """
     HelpScreen { align: center middle; }
@@ -74,12 +75,16 @@ class HelpScreen(ModalScreen):
     """
     BINDINGS = [Binding("escape,q,question_mark,f1", "dismiss", "close")]
 
-    def __init__(self, keys: list[tuple[str, str]]):
+    def __init__(self, keys: list[tuple[str, str]], notes: tuple[str, ...] | list[str] = ()):
         super().__init__()
         self.keys = keys
+        self.notes = list(notes)
 
     def compose(self) -> ComposeResult:
-        lines = ["KEYS"]
+        lines = []
+        if self.notes:
+            lines += ["NOTES ON THIS PROFILE"] + [f"  - {n}" for n in self.notes] + [""]
+        lines += ["KEYS"]
         width = max(len(k) for k, _ in self.keys)
         lines += [f"  {k.ljust(width)}  {d}" for k, d in self.keys]
         lines += [
