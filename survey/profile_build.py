@@ -425,7 +425,9 @@ def _wander_bound_bends(cols: dict, model_h: NoiseModel, kappa_sigmas: float) ->
     wander's drift, gives part of the bend to the wander: the radius reads large. Measured
     (benchmarks/bench_accuracy.py, 30 seeds, radius against the truth at each station's time,
     with the wander less without it) against d / R on the arcs: 8 m hairpins at walking pace
-    on phone-grade fixes, d / R = 0.16 and +13 points (23.6 % against 10.7 %); a phone-grade
+    on phone-grade fixes, d / R = 0.16 and +13 points (23.6 % against 10.7 %; the chainage
+    4.2 % short against 0.95 %, of which the wander's own drift at the log's two ends explains
+    about 1 %, ``bench_accuracy.py``'s lenF); a phone-grade
     helix of 50 m radius at 10 m/s, 0.024 and +2.5 points; dual-frequency hairpins 0.013, a
     1 Hz phone road's 400 m arcs 0.005. Above ``WANDER_RADIUS_SHARE`` the note names them;
     none without a modelled wander. A log with speed and course over ground measures such bends
@@ -445,8 +447,8 @@ def _wander_bound_bends(cols: dict, model_h: NoiseModel, kappa_sigmas: float) ->
     return [f"{int(bound.sum())} stations ({ch.min():.0f}-{ch.max():.0f} m) bend tightly for the receiver's slow "
             f"wander (1-sigma {np.sqrt(g2):.2g} m), which moves up to {np.nanmax(share[bound]):.0%} of their radius "
             f"while the mover turns a radian: from positions alone part of such a bend is taken for wander, so the "
-            f"radius reads large (8 m hairpins, phone-grade fixes: about +13 %); speed and course over ground "
-            f"in the log would measure them"]
+            f"radius reads large and the chainage short (8 m hairpins, phone-grade fixes: radius about +13 %, "
+            f"chainage about 3 % short); speed and course over ground in the log would measure them"]
 
 
 def _fit_models(stretches, use_acc, has_height, cfg):
