@@ -99,13 +99,13 @@ def jump_share(t: np.ndarray, axes: Sequence[np.ndarray], chain: np.ndarray, pla
     cc = np.zeros(k)
     rr = np.zeros(k)
     windows = np.zeros(k, np.int64)
+    S = seg[block] if seg is not None else None
     for off in (-2, -1, 0, 1, 2):  # the five windows, vectorised over the candidates
         b = 4 + off  # the window's centre, a column of the block
         cols = (b - 2, b - 1, b + 1, b + 2)
         ok = (T[:, cols[0]] < T[:, cols[1]]) & (T[:, cols[1]] < T[:, b]) & (T[:, b] < T[:, cols[2]]) \
             & (T[:, cols[2]] < T[:, cols[3]])
-        if seg is not None:
-            S = seg[block]
+        if S is not None:
             ok &= (S[:, cols[0]] == S[:, b]) & (S[:, cols[3]] == S[:, b])
         if not ok.any():
             continue

@@ -429,9 +429,10 @@ def _wander_bound_bends(cols: dict, model_h: NoiseModel, kappa_sigmas: float) ->
     4.2 % short against 0.95 %, of which the wander's own drift at the log's two ends explains
     about 1 %, ``bench_accuracy.py``'s lenF); a phone-grade
     helix of 50 m radius at 10 m/s, 0.024 and +2.5 points; dual-frequency hairpins 0.013, a
-    1 Hz phone road's 400 m arcs 0.005. Above ``WANDER_RADIUS_SHARE`` the note names them;
-    none without a modelled wander. A log with speed and course over ground measures such bends
-    (the receiver's velocity does not wander) and gets no note (the caller's choice)."""
+    1 Hz phone road's 400 m arcs 0.005. Above ``WANDER_RADIUS_SHARE`` (a judgement, between
+    the helix's 0.024 and the hairpins' 0.16) the note names them; none without a modelled
+    wander. The caller leaves the note out on a log with speed and course over ground, which
+    measures such bends (the receiver's velocity does not wander)."""
     g2, tau = model_h.wander_var_m2, model_h.wander_tau_s
     if not g2 > 0:
         return []
