@@ -397,15 +397,23 @@ def _undersampled_bends(cols: dict, stretches, kappa_sigmas: float) -> list[str]
         i = np.clip(np.searchsorted(t, cols["time_s"][at]) - 1, 0, len(t) - 2)
         spacing[at] = s_fix[i + 1] - s_fix[i]
     with np.errstate(invalid="ignore"):
-        bends = cols["curvature_per_m"] > kappa_sigmas * cols["curvature_sd_per_m"]
-        tight = bends & (cols["radius_m"] < UNDERSAMPLED_RADIUS_PER_SPACING * spacing)
-    if not tight.any():
+        tight = cols["radius_m"] < UNDERSAMPLED_RADIUS_PER_SPACING * spacing
+    return _bend_note(cols, kappa_sigmas, tight, lambda at: (
+        f"bend with a radius under {UNDERSAMPLED_RADIUS_PER_SPACING:g}x the distance between the fixes around "
+        f"them (up to {np.nanmax(spacing[at]):.0f} m): too few fixes on those bends to measure them; their "
+        f"radius reads too large and the chainage through them too short"))
+
+
+def _bend_note(cols: dict, kappa_sigmas: float, where: np.ndarray, says) -> list[str]:
+    """One message naming the stations that bend (curvature above ``kappa_sigmas`` x its
+    1-sigma) where ``where`` holds -- their count, their chainage span and ``says(mask)`` -- or
+    none if no station does."""
+    with np.errstate(invalid="ignore"):
+        at = where & (cols["curvature_per_m"] > kappa_sigmas * cols["curvature_sd_per_m"])
+    if not at.any():
         return []
-    ch = cols["chainage_m"][tight]
-    return [f"{int(tight.sum())} stations ({ch.min():.0f}-{ch.max():.0f} m) bend with a radius under "
-            f"{UNDERSAMPLED_RADIUS_PER_SPACING:g}x the distance between the fixes around them (up to "
-            f"{np.nanmax(spacing[tight]):.0f} m): too few fixes on those bends to measure them; their "
-            f"radius reads too large and the chainage through them too short"]
+    ch = cols["chainage_m"][at]
+    return [f"{int(at.sum())} stations ({ch.min():.0f}-{ch.max():.0f} m) {says(at)}"]
 
 
 #: A bend is wander-bound where the receiver's slow wander moves, while the mover turns through
@@ -438,18 +446,14 @@ def _wander_bound_bends(cols: dict, model_h: NoiseModel, kappa_sigmas: float) ->
         return []
     with np.errstate(invalid="ignore", divide="ignore"):
         r = cols["radius_m"]
-        turn_s = r / cols["speed_mps"]
-        share = np.sqrt(2.0 * g2 * -np.expm1(-turn_s / tau)) / r
-        bends = cols["curvature_per_m"] > kappa_sigmas * cols["curvature_sd_per_m"]
-        bound = bends & (share > WANDER_RADIUS_SHARE)
-    if not bound.any():
-        return []
-    ch = cols["chainage_m"][bound]
-    return [f"{int(bound.sum())} stations ({ch.min():.0f}-{ch.max():.0f} m) bend tightly for the receiver's slow "
-            f"wander (1-sigma {np.sqrt(g2):.2g} m), which moves up to {np.nanmax(share[bound]):.0%} of their radius "
-            f"while the mover turns a radian: from positions alone part of such a bend is taken for wander, so the "
-            f"radius reads large and the chainage short (8 m hairpins, phone-grade fixes: radius about +13 %, "
-            f"chainage about 3 % short); speed and course over ground in the log would measure them"]
+        share = np.sqrt(2.0 * g2 * -np.expm1(-r / cols["speed_mps"] / tau)) / r
+        bound = share > WANDER_RADIUS_SHARE
+    return _bend_note(cols, kappa_sigmas, bound, lambda at: (
+        f"bend tightly for the receiver's slow wander (1-sigma {np.sqrt(g2):.2g} m), which moves up to "
+        f"{np.nanmax(share[at]):.0%} of their radius while the mover turns a radian: from positions alone part "
+        f"of such a bend is taken for wander, so the radius reads large and the chainage short (8 m hairpins, "
+        f"phone-grade fixes: radius about +13 %, chainage about 3 % short); speed and course over ground in "
+        f"the log would measure them"))
 
 
 def _fit_models(stretches, use_acc, has_height, cfg):
