@@ -50,7 +50,7 @@ __all__ = ["JUMP_SHARE_MIN", "MAX_ACCEL_MPS2", "jumps_among", "jump_share", "mot
 #: energy of the windows around it. A lone jump at the test's own threshold (8 robust sigmas of
 #: the residuals) leaves at most the noise of five windows unexplained: share about 0.93 on
 #: average (expected noise energy 5 x 2 sigma^2 against 35/18 x 64 sigma^2 of jump); smooth
-#: motion stays near 0.05. Half is a round number between the two.
+#: motion stays near 0 (a steady arc: 2e-7). Half is a round number between the two.
 JUMP_SHARE_MIN = 0.5
 
 #: Acceleration no ground vehicle's tyres can give (about 1 g, standard gravity 9.80665 m/s^2):
