@@ -219,17 +219,16 @@ def build_profile(track: Track, enu_m: np.ndarray, frame, step_m: float = 1.0, s
     cols, knots, lengths = _place_stations(smoothed_stretches(), step_m, has_time, has_height, cfg, messages)
     if cols is None:
         return empty_profile(track, frame, step_m, cfg, messages)
+    used = int(np.sum(np.isfinite(vel[ok]).all(axis=1))) if vel is not None else 0  # fixes with a velocity
     if has_time:
         messages.extend(_undersampled_bends(cols, stretches, cfg["kappa_sigmas"]))
-        doppler = vel is not None and np.isfinite(vel[ok]).all(axis=1).mean() >= 0.5
-        if not doppler:  # the receiver's velocity, where most fixes have one, is not wandering
+        if used < 0.5 * np.count_nonzero(ok):  # the receiver's velocity, where most fixes have one, is not wandering
             messages.extend(_wander_bound_bends(cols, model_h, cfg["kappa_sigmas"]))
     settings_out = _settings(cfg, step_m, model_h, model_v if has_height else None, use_acc, has_time, knots)
     settings_out["plan_prior"] = ("constant jerk" if turn_factor is None else
                                   f"turn-aware at the estimated turn rate, snap density x {turn_factor:.4g} "
                                   f"(log likelihood +{turn_gain:.1f} over constant jerk)")
     if vel is not None:
-        used = int(np.sum(np.isfinite(vel[ok]).all(axis=1)))
         settings_out["receiver_velocity"] = (f"{used} fixes' speed and course over ground measured the "
                                              f"velocity, 1-sigma {cfg['velocity_sigma_mps']:g} m/s per axis")
         messages.append(f"speed and course over ground of {used} fixes used as velocity measurements")
