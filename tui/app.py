@@ -243,9 +243,12 @@ class TrackApp(App):
         self._sections_changed()
         self.query_one("#charts").focus()
         notes = len(self._notes())
-        self.set_status(" · ".join(model.warnings) if getattr(model, "warnings", None) else
-                        f"ready: {notes} note{'s' if notes > 1 else ''} on this profile, shown with every key (?)"
-                        if notes else "ready: ? lists every key")
+        if getattr(model, "warnings", None):
+            self.set_status(" · ".join(model.warnings))
+        elif notes:
+            self.set_status(f"ready: {notes} note{'s' if notes > 1 else ''} on this profile, shown with every key (?)")
+        else:
+            self.set_status("ready: ? lists every key")
         self.call_after_refresh(self._first_paint)
 
     def _first_paint(self) -> None:
